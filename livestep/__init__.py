@@ -1,0 +1,21 @@
+"""livestep: find, measure and model every setpoint step in a controller's data stream.
+
+The numerical core needs no UI and no I/O::
+
+    from livestep import analyze_chunks, SampleChunk
+    results = list(analyze_chunks([SampleChunk(t=t, setpoint=sp, feedback=fb)]))
+"""
+
+from livestep.analysis import AnalysisSettings, StepAnalyzer, StepResult, analyze_chunks
+from livestep.detect import DetectorSettings, StepDetector, StepWindow
+from livestep.measure import MeasureSettings, StepMetrics, measure_step
+from livestep.model_fit import ClosedFormEstimate, ModelFit, closed_form_estimate, fit_second_order
+from livestep.samples import SampleChunk
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "AnalysisSettings", "ClosedFormEstimate", "DetectorSettings", "MeasureSettings", "ModelFit",
+    "SampleChunk", "StepAnalyzer", "StepDetector", "StepMetrics", "StepResult", "StepWindow",
+    "analyze_chunks", "closed_form_estimate", "fit_second_order", "measure_step",
+]

@@ -1,0 +1,84 @@
+"""From sample chunks to measured, modelled steps: the numerical pipeline's core.
+
+No I/O here: feed it chunks from any source (a recording, a serial link, a
+simulation) and it yields one :class:`StepResult` per step as soon as the
+step's window closes.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Iterator
+from dataclasses import dataclass, field
+
+from livestep.detect import DetectorSettings, StepDetector, StepWindow
+from livestep.measure import MeasureSettings, StepMetrics, measure_step
+from livestep.model_fit import ClosedFormEstimate, ModelFit, closed_form_estimate, fit_second_order
+from livestep.samples import SampleChunk
+
+__all__ = ["AnalysisSettings", "StepAnalyzer", "StepResult", "analyze_chunks", "analyze_window"]
+
+
+@dataclass(frozen=True, kw_only=True)
+class AnalysisSettings:
+    """Detection and measurement options together; ``fit_model`` turns the fit off."""
+
+    detect: DetectorSettings = field(default_factory=DetectorSettings)
+    measure: MeasureSettings = field(default_factory=MeasureSettings)
+    fit_model: bool = True
+
+
+@dataclass(frozen=True, kw_only=True)
+class StepResult:
+    """Everything known about one step."""
+
+    index: int
+    metrics: StepMetrics
+    estimate: ClosedFormEstimate
+    model: ModelFit | None
+    end_reason: str
+    warnings: tuple[str, ...]
+
+
+def analyze_window(w: StepWindow, settings: AnalysisSettings = AnalysisSettings()) -> StepResult:
+    """Measure and model one detected step."""
+    m = measure_step(w.t, w.feedback, w.i_step, setpoint=w.setpoint,
+                     setpoint_before=w.setpoint_before, setpoint_after=w.setpoint_after,
+                     pre_start=w.pre_start, settings=settings.measure)
+    warnings = list(m.warnings)
+    model = fit_second_order(w.t, w.feedback, m) if settings.fit_model else None
+    if settings.fit_model and model is None:
+        warnings.append("no second-order model: the response has no measurable rise")
+    elif model is not None and model.fit_r2 < 0.9:
+        warnings.append(f"the second-order model fits poorly (R^2 = {model.fit_r2:.3f})")
+    if w.end_reason == "longest window":
+        warnings.append("the window was cut at the longest window setting")
+    return StepResult(index=w.index, metrics=m, estimate=closed_form_estimate(
+        m, settings.measure.settling_band), model=model, end_reason=w.end_reason,
+        warnings=tuple(warnings))
+
+
+class StepAnalyzer:
+    """Incremental analysis: :meth:`feed` chunks, :meth:`finish` at the end."""
+
+    def __init__(self, settings: AnalysisSettings = AnalysisSettings(),
+                 *, has_setpoint: bool = True) -> None:
+        self.settings = settings
+        self.detector = StepDetector(settings.detect, has_setpoint=has_setpoint)
+
+    def feed(self, chunk: SampleChunk) -> list[StepResult]:
+        """Results of the steps whose windows this chunk closed."""
+        windows = self.detector.feed(chunk.t, chunk.feedback, chunk.setpoint)
+        return [analyze_window(w, self.settings) for w in windows]
+
+    def finish(self) -> list[StepResult]:
+        """Results of the step still open at the end of the stream."""
+        return [analyze_window(w, self.settings) for w in self.detector.finish()]
+
+
+def analyze_chunks(chunks: Iterable[SampleChunk], settings: AnalysisSettings = AnalysisSettings(),
+                   *, has_setpoint: bool = True) -> Iterator[StepResult]:
+    """Yield every step of a stream of chunks, in order."""
+    analyzer = StepAnalyzer(settings, has_setpoint=has_setpoint)
+    for chunk in chunks:
+        yield from analyzer.feed(chunk)
+    yield from analyzer.finish()

@@ -1,0 +1,23 @@
+"""Errors that end a command with a one-line message and a documented exit status.
+
+Exit statuses: 0 success, 1 internal error (a bug: please report), 2 bad input
+or bad options, 130 interrupted.
+"""
+
+from __future__ import annotations
+
+__all__ = ["EXIT_BAD_INPUT", "EXIT_INTERRUPTED", "EXIT_OK", "InputError"]
+
+EXIT_OK = 0
+EXIT_BAD_INPUT = 2
+EXIT_INTERRUPTED = 130
+
+
+class InputError(Exception):
+    """Bad input file or option; ``str(err)`` is the one line shown to the user."""
+
+    exit_status = EXIT_BAD_INPUT
+
+    def __init__(self, message: str, *, line: int | None = None) -> None:
+        self.line = line
+        super().__init__(f"line {line}: {message}" if line is not None else message)

@@ -1,0 +1,328 @@
+"""Time-domain step-response measurements on sampled, possibly noisy data.
+
+Pure functions: arrays in, a frozen :class:`StepMetrics` out. Definitions
+(times in seconds from the step instant ``t_step``, percentages of the step
+amplitude ``|final - initial|``):
+
+- levels: ``initial`` and ``final`` are robust levels (10 % trimmed means) of the
+  feedback before the step and over the settled tail. IEEE Std 181 defines the
+  two state levels of a transition the same way, from the data (histogram or
+  mean), and normalises every reference level by the amplitude between them.
+- ``rise_time``: first crossing of the low reference level (10 %) to the first
+  crossing of the high one (90 %); ``delay_time``: first crossing of 50 %.
+  Crossings are interpolated linearly between samples, as IEEE Std 181 does for
+  reference-level instants. 10-90 % rise time is the control-textbook
+  convention (Franklin, Powell & Emami-Naeini; Dorf & Bishop).
+- ``peak_time`` / ``peak``: the largest excursion in the step's direction,
+  refined between samples by a parabola through the three samples around it;
+  ``overshoot_pct`` = 100 (peak - final) / |amplitude| (Ogata's maximum
+  overshoot, normalised by the amplitude rather than the final value so steps
+  that end near zero behave); ``undershoot_pct``: the largest motion against
+  the step's direction before the 50 % instant.
+- ``settling_time``: the last exit from the band final +- band % of |amplitude|
+  (Ogata: "the time required for the response curve to reach and stay within a
+  range about the final value"). IEEE Std 181 times its settling duration from
+  the 50 % instant; livestep times it from the step instant, as control
+  practice does.
+- ``steady_state_error`` = setpoint after - final; ``iae``, ``ise``, ``itae``:
+  integrals over the window of |e|, e^2 and (t - t_step)|e| with
+  e = setpoint - feedback, by the trapezoid rule on the real timestamps.
+
+Noise: the response is put on a uniform grid at the median sample period (by
+linear interpolation on the real timestamps, which also bridges dropped
+samples) and, when noise is significant against the settling band, smoothed by
+a zero-phase Savitzky-Golay filter (cubic) whose length is kept short against
+the rise time, so crossings and the peak are not biased while the residual
+noise stays well inside the band.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy.integrate import trapezoid
+from scipy.signal import savgol_filter
+from scipy.stats import trim_mean
+
+__all__ = ["MeasureSettings", "StepMetrics", "measure_step", "noise_sigma", "robust_level"]
+
+FloatArray = NDArray[np.float64]
+
+
+@dataclass(frozen=True, kw_only=True)
+class MeasureSettings:
+    """Measurement options.
+
+    ``rise_levels``: low and high reference levels, percent of the amplitude.
+    ``settling_band``: half-width of the settling band, percent of |amplitude|.
+    """
+
+    rise_levels: tuple[float, float] = (10.0, 90.0)
+    settling_band: float = 2.0
+
+    def __post_init__(self) -> None:
+        lo, hi = self.rise_levels
+        if not 0.0 < lo < hi < 100.0:
+            raise ValueError(f"rise levels must satisfy 0 < LO < HI < 100, got {lo},{hi}")
+        if not 0.0 < self.settling_band < 50.0:
+            raise ValueError(f"settling band must be between 0 and 50 %, got {self.settling_band}")
+
+
+@dataclass(frozen=True, kw_only=True)
+class StepMetrics:
+    """Measured figures of one step. Times in seconds from ``t_step``; levels in
+    feedback units; ``*_pct`` in percent of |amplitude| (``steady_state_error_pct``
+    in percent of the setpoint change). ``None`` where a value is undefined."""
+
+    t_step: float
+    direction: str
+    setpoint_before: float | None
+    setpoint_after: float | None
+    initial: float
+    final: float
+    amplitude: float
+    rise_time: float | None
+    delay_time: float | None
+    peak_time: float | None
+    peak: float | None
+    overshoot_pct: float
+    undershoot_pct: float
+    settling_time: float | None
+    settled: bool
+    steady_state_error: float | None
+    steady_state_error_pct: float | None
+    iae: float | None
+    ise: float | None
+    itae: float | None
+    noise_sigma: float
+    sample_period: float
+    smoothing_samples: int
+    warnings: tuple[str, ...] = field(default=())
+
+
+def robust_level(x: FloatArray) -> float:
+    """Robust level of a stretch of samples: the 10 % trimmed mean (same units as ``x``)."""
+    return float(trim_mean(x, 0.1))
+
+
+def noise_sigma(x: FloatArray) -> float:
+    """Noise standard deviation from first differences (same units as ``x``).
+
+    Differencing removes a slow drift; sigma = 1.4826 MAD(diff) / sqrt(2). When
+    more than half of the differences are zero (quantised, nearly quiet data)
+    the MAD is zero and the plain standard deviation of the differences is used.
+    """
+    if x.size < 3:
+        return 0.0
+    d = np.diff(x)
+    mad = float(np.median(np.abs(d - np.median(d))))
+    if mad > 0.0:
+        return 1.4826 * mad / math.sqrt(2.0)
+    return float(np.std(d)) / math.sqrt(2.0)
+
+
+def _first_crossing(tg: FloatArray, r: FloatArray, level: float, start: int) -> float | None:
+    """Interpolated time of the first sample at or past ``level`` (rising, normalised)."""
+    above = np.flatnonzero(r[start:] >= level)
+    if above.size == 0:
+        return None
+    i = start + int(above[0])
+    if i == 0 or r[i] == r[i - 1]:
+        return float(tg[i])
+    return float(tg[i - 1] + (level - r[i - 1]) / (r[i] - r[i - 1]) * (tg[i] - tg[i - 1]))
+
+
+def _parabolic_peak(tg: FloatArray, y: FloatArray, i: int) -> tuple[float, float]:
+    """Vertex of the parabola through samples i-1, i, i+1 of a uniform grid."""
+    if i <= 0 or i >= y.size - 1:
+        return float(tg[i]), float(y[i])
+    ym, y0, yp = y[i - 1], y[i], y[i + 1]
+    denom = ym - 2.0 * y0 + yp
+    if denom >= 0.0:
+        return float(tg[i]), float(y0)
+    delta = 0.5 * (ym - yp) / denom
+    dt = tg[1] - tg[0]
+    return float(tg[i] + delta * dt), float(y0 - 0.25 * (ym - yp) * delta)
+
+
+def _odd(n: float, lo: int) -> int:
+    k = max(lo, int(round(n)))
+    return k if k % 2 else k + 1
+
+
+def _smooth(r: FloatArray, window: int) -> FloatArray:
+    if window < 5 or r.size < window:
+        return r
+    return savgol_filter(r, window, 3)
+
+
+def _settling(tg: FloatArray, r: FloatArray, start: int, band: float) -> tuple[float | None, int]:
+    """Time of the last exit from |r - 1| <= band, and its grid index (-1 if never settled)."""
+    outside = np.flatnonzero(np.abs(r[start:] - 1.0) > band)
+    if outside.size == 0:
+        return float(tg[start]), start
+    j = start + int(outside[-1])
+    if j >= r.size - 1:
+        return None, -1
+    edge = 1.0 + band if r[j] > 1.0 else 1.0 - band
+    t = tg[j] + (edge - r[j]) / (r[j + 1] - r[j]) * (tg[j + 1] - tg[j])
+    return float(t), j + 1
+
+
+def measure_step(
+    t: FloatArray,
+    feedback: FloatArray,
+    i_step: int,
+    *,
+    setpoint: FloatArray | None = None,
+    setpoint_before: float | None = None,
+    setpoint_after: float | None = None,
+    pre_start: int = 0,
+    settings: MeasureSettings = MeasureSettings(),
+) -> StepMetrics:
+    """Measure one step response.
+
+    ``t`` (seconds, strictly increasing) and ``feedback`` cover the stretch used
+    for the initial level, ``[pre_start, i_step)``, then the step window
+    ``[i_step, end)``; ``t[i_step]`` is the step instant. ``setpoint`` (same
+    length) is needed for the error integrals.
+    """
+    warnings: list[str] = []
+    t = np.asarray(t, dtype=float)
+    y = np.asarray(feedback, dtype=float)
+    t_step = float(t[i_step])
+    pre = y[pre_start:i_step]
+    if pre.size < 3:
+        warnings.append("fewer than 3 samples before the step: initial level is uncertain")
+        pre = y[max(0, i_step - 3): i_step + 1]
+    initial = robust_level(pre)
+    sigma = noise_sigma(pre)
+
+    post_t = t[i_step:]
+    dt = float(np.median(np.diff(post_t))) if post_t.size > 1 else 0.0
+    span = float(post_t[-1] - t_step) if post_t.size else 0.0
+
+    sp_change = None
+    if setpoint_before is not None and setpoint_after is not None:
+        sp_change = setpoint_after - setpoint_before
+
+    # Uniform grid aligned on the step instant, covering the window and a little before.
+    n_before = i_step - pre_start
+    t0 = t[i_step - n_before] if n_before > 0 else t_step
+    if dt > 0:
+        k0 = -int(math.floor((t_step - t0) / dt))
+        k1 = int(math.floor(span / dt))
+        tg = t_step + dt * np.arange(k0, k1 + 1)
+    else:
+        tg = post_t.copy()
+    yg = np.interp(tg, t, y)
+    g0 = int(np.searchsorted(tg, t_step))
+
+    def tail_final(from_time: float) -> float:
+        sel = y[i_step:][post_t >= from_time]
+        if sel.size < 10:
+            sel = y[-max(10, (y.size - i_step) // 5):]
+        return robust_level(sel)
+
+    final = tail_final(t_step + 0.8 * span)
+    window = 1
+    settle_t: float | None = None
+    for _ in range(3):
+        amp = final - initial
+        if amp == 0.0 or abs(amp) < 5.0 * sigma:
+            break
+        band = settings.settling_band / 100.0
+        r_raw = (yg - initial) / amp
+        window = 1
+        if sigma > 1e-6 * abs(amp):
+            # Smooth over a length short against the rise time (a cubic fit over 0.4 of the
+            # rise time follows the response closely) and never more than needed.
+            coarse = _smooth(r_raw, _odd(r_raw.size / 20, 5))
+            lo_t = _first_crossing(tg, coarse, 0.1, g0)
+            hi_t = _first_crossing(tg, coarse, 0.9, g0)
+            if lo_t is not None and hi_t is not None and dt > 0:
+                window = _odd(0.4 * (hi_t - lo_t) / dt, 1)
+                window = window if window >= 5 else 1
+        r = _smooth(r_raw, window)
+        settle_t, _ = _settling(tg, r, g0, band)
+        if settle_t is None:
+            break
+        new_final = tail_final(max(t_step + 0.8 * span, 0.5 * (settle_t + post_t[-1])))
+        if new_final == final:
+            break
+        final = new_final
+
+    amp = final - initial
+    direction = "up" if (sp_change if sp_change else amp) >= 0 else "down"
+    if amp == 0.0 or abs(amp) < 5.0 * sigma:
+        warnings.append("the feedback did not move measurably: no response to measure")
+        return StepMetrics(
+            t_step=t_step, direction=direction, setpoint_before=setpoint_before,
+            setpoint_after=setpoint_after, initial=initial, final=final, amplitude=amp,
+            rise_time=None, delay_time=None, peak_time=None, peak=None, overshoot_pct=0.0,
+            undershoot_pct=0.0, settling_time=None, settled=False,
+            steady_state_error=None if setpoint_after is None else setpoint_after - final,
+            steady_state_error_pct=None, iae=None, ise=None, itae=None, noise_sigma=sigma,
+            sample_period=dt, smoothing_samples=window, warnings=tuple(warnings))
+
+    band = settings.settling_band / 100.0
+    r = _smooth((yg - initial) / amp, window)
+    resid = sigma / abs(amp) * (1.5 / math.sqrt(window) if window >= 5 else 1.0)
+    lo, hi = (x / 100.0 for x in settings.rise_levels)
+    t_lo = _first_crossing(tg, r, lo, g0)
+    t_hi = _first_crossing(tg, r, hi, g0)
+    t_50 = _first_crossing(tg, r, 0.5, g0)
+    rise = None if t_lo is None or t_hi is None else t_hi - t_lo
+    delay = None if t_50 is None else t_50 - t_step
+
+    i_pk = g0 + int(np.argmax(r[g0:]))
+    peak_time = peak = None
+    overshoot = 0.0
+    if i_pk < r.size - 1:
+        tp, rp = _parabolic_peak(tg, r, i_pk)
+        if rp - 1.0 > max(5.0 * resid, 1e-3):
+            peak_time, peak = tp - t_step, initial + rp * amp
+            overshoot = 100.0 * (rp - 1.0)
+
+    i_50 = int(np.searchsorted(tg, t_50)) if t_50 is not None else r.size
+    undershoot = max(0.0, -100.0 * float(np.min(r[g0:max(i_50, g0 + 1)])))
+    if undershoot <= 100.0 * max(5.0 * resid, 1e-3):
+        undershoot = 0.0
+
+    settle_t, _ = _settling(tg, r, g0, band)
+    settled = False
+    settling_time = None
+    if settle_t is not None:
+        hold = max(10.0 * dt, 0.05 * span)
+        if tg[-1] - settle_t >= hold:
+            settled, settling_time = True, settle_t - t_step
+    if not settled:
+        warnings.append("the window ended before the response settled inside the band")
+    if sigma > 0.5 * band * abs(amp):
+        warnings.append(
+            f"noise sigma is {100 * sigma / abs(amp):.2g} % of the amplitude, large against the"
+            f" +-{settings.settling_band:g} % settling band; measured on a response smoothed over"
+            f" {window} samples")
+
+    sse = sse_pct = iae = ise = itae = None
+    if setpoint_after is not None:
+        sse = setpoint_after - final
+        if sp_change:
+            sse_pct = 100.0 * sse / sp_change
+    if setpoint is not None and post_t.size > 1:
+        e = np.abs(np.asarray(setpoint, dtype=float)[i_step:] - y[i_step:])
+        iae = float(trapezoid(e, post_t))
+        ise = float(trapezoid(e * e, post_t))
+        itae = float(trapezoid((post_t - t_step) * e, post_t))
+
+    return StepMetrics(
+        t_step=t_step, direction=direction, setpoint_before=setpoint_before,
+        setpoint_after=setpoint_after, initial=initial, final=final, amplitude=amp,
+        rise_time=rise, delay_time=delay, peak_time=peak_time, peak=peak,
+        overshoot_pct=overshoot, undershoot_pct=undershoot, settling_time=settling_time,
+        settled=settled, steady_state_error=sse, steady_state_error_pct=sse_pct, iae=iae,
+        ise=ise, itae=itae, noise_sigma=sigma, sample_period=dt, smoothing_samples=window,
+        warnings=tuple(warnings))

@@ -1,0 +1,169 @@
+"""Second-order-plus-dead-time model of a measured step response.
+
+Two independent estimates per step:
+
+- closed form from the measured overshoot and peak time: zeta from %OS and
+  wn = pi / (Tp sqrt(1 - zeta^2)), with the 4/(zeta wn) settling estimate
+  (see :mod:`livestep.second_order` for the formulas and their sources);
+- a least-squares fit (scipy.optimize.least_squares) of
+  y(t) = y0 + A s(t - t_step - dead_time; zeta, wn) to the sampled response,
+  valid for over-damped responses (zeta >= 1) as well.
+
+Pure functions: arrays in, frozen dataclasses out.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy.optimize import least_squares
+
+from livestep import second_order as so
+from livestep.measure import StepMetrics
+
+__all__ = ["ClosedFormEstimate", "ModelFit", "closed_form_estimate", "fit_second_order"]
+
+FloatArray = NDArray[np.float64]
+_MAX_BINS = 300
+
+
+@dataclass(frozen=True, kw_only=True)
+class ClosedFormEstimate:
+    """zeta (dimensionless) from %OS; wn (rad/s) from the peak time measured from the step
+    instant (so dead time inflates it); ``settling_time`` = 4/(zeta wn), seconds."""
+
+    zeta: float | None
+    wn: float | None
+    settling_time: float | None
+
+
+@dataclass(frozen=True, kw_only=True)
+class ModelFit:
+    """Fitted model. ``gain``: steady-state gain, feedback change per setpoint change
+    (``None`` without a setpoint); ``wn`` and ``bandwidth`` in rad/s; ``dead_time`` in
+    seconds; ``fit_r2`` and ``fit_nrmse`` (rms residual, fraction of |amplitude|) on the
+    raw samples of the fitted span; ``phase_margin_deg`` from zeta for the standard loop."""
+
+    zeta: float
+    wn: float
+    gain: float | None
+    dead_time: float
+    amplitude: float
+    fit_r2: float
+    fit_nrmse: float
+    bandwidth: float
+    phase_margin_deg: float
+    settling_time_estimate: float | None
+
+
+def closed_form_estimate(m: StepMetrics, band_pct: float = 2.0) -> ClosedFormEstimate:
+    """Textbook estimates from the measured overshoot and peak time (underdamped only)."""
+    zeta = so.zeta_from_overshoot(m.overshoot_pct) if m.peak_time else None
+    if zeta is None or not m.peak_time:
+        return ClosedFormEstimate(zeta=None, wn=None, settling_time=None)
+    wn = math.pi / (m.peak_time * math.sqrt(1.0 - zeta * zeta))
+    return ClosedFormEstimate(zeta=zeta, wn=wn,
+                              settling_time=so.settling_time_estimate(zeta, wn, band_pct))
+
+
+def _bin_means(t: FloatArray, y: FloatArray, n_bins: int) -> tuple[FloatArray, FloatArray]:
+    if t.size <= n_bins:
+        return t, y
+    edges = np.linspace(0, t.size, n_bins + 1).astype(np.intp)[:-1]
+    counts = np.diff(np.append(edges, t.size))
+    return np.add.reduceat(t, edges) / counts, np.add.reduceat(y, edges) / counts
+
+
+def _model_crossing(zeta: float, level: float) -> float:
+    """Normalised time wn*t of the first crossing of ``level`` by the unit step response."""
+    horizon = 20.0 * max(1.0, zeta) + 10.0
+    x = np.linspace(0.0, horizon, 4001)
+    s = so.step_response(x, zeta, 1.0)
+    i = int(np.argmax(s >= level))
+    return float(x[i])
+
+
+def _initial_guess(m: StepMetrics) -> tuple[float, float, float]:
+    """(zeta, wn, dead_time) to start the fit from, using the measured crossings."""
+    cf = closed_form_estimate(m)
+    t10 = (m.delay_time or 0.0) - (m.rise_time or 0.0) * 0.5
+    if cf.zeta is not None and m.peak_time:
+        zeta = cf.zeta
+        x10 = _model_crossing(zeta, 0.1)
+        xp = math.pi / math.sqrt(1.0 - zeta * zeta)
+        # t10 = theta + x10/wn and Tp = theta + xp/wn
+        wn = (xp - x10) / max(m.peak_time - t10, 1e-12)
+    else:
+        zeta = 1.2
+        x10, x90 = _model_crossing(zeta, 0.1), _model_crossing(zeta, 0.9)
+        wn = (x90 - x10) / max(m.rise_time or 1.0, 1e-12)
+    theta = max(0.0, t10 - _model_crossing(zeta, 0.1) / wn)
+    return zeta, wn, theta
+
+
+def fit_second_order(
+    t: FloatArray,
+    feedback: FloatArray,
+    m: StepMetrics,
+    *,
+    window_end: float | None = None,
+) -> ModelFit | None:
+    """Least-squares fit of gain, damping ratio, natural frequency and dead time.
+
+    ``t`` (seconds) and ``feedback`` are the samples of the step (before and after
+    ``m.t_step``); ``m`` gives the measured levels and crossings used to start the
+    fit and to choose the span (to about three settling times). ``None`` when the
+    response has no measurable rise.
+    """
+    if m.rise_time is None or m.delay_time is None or m.amplitude == 0.0:
+        return None
+    t = np.asarray(t, dtype=float)
+    y = np.asarray(feedback, dtype=float)
+    end = float(t[-1]) if window_end is None else window_end
+    reach = m.settling_time if m.settling_time is not None else end - m.t_step
+    span = min(end - m.t_step, max(3.0 * reach, 10.0 * (m.delay_time + m.rise_time)))
+    pre = min(0.2 * span, m.t_step - float(t[0]))
+    sel = (t >= m.t_step - pre) & (t <= m.t_step + span)
+    ts, yn = t[sel] - m.t_step, (y[sel] - m.initial) / m.amplitude
+    if ts.size < 8:
+        return None
+    tb, yb = _bin_means(ts, yn, _MAX_BINS)
+
+    zeta0, wn0, theta0 = _initial_guess(m)
+
+    def residual(p: FloatArray, tt: FloatArray, yy: FloatArray) -> FloatArray:
+        c0, g, log_zeta, log_wn, theta = p
+        return c0 + g * so.step_response(tt - theta, math.exp(log_zeta), math.exp(log_wn)) - yy
+
+    x0 = np.array([0.0, 1.0, math.log(zeta0), math.log(wn0), min(theta0, 0.4 * span)])
+    lower = [-0.5, 0.5, math.log(0.005), math.log(wn0) - 3.0, 0.0]
+    upper = [0.5, 1.5, math.log(50.0), math.log(wn0) + 3.0, 0.5 * span]
+    best = None
+    starts = [x0]
+    if theta0 > 0:
+        starts.append(np.array([0.0, 1.0, math.log(zeta0), math.log(wn0), 0.0]))
+    for start in starts:
+        sol = least_squares(residual, np.clip(start, lower, upper), bounds=(lower, upper),
+                            args=(tb, yb), x_scale=[0.1, 0.1, 0.5, 0.5, 1.0 / wn0], method="trf")
+        if best is None or sol.cost < best.cost:
+            best = sol
+    c0, g, log_zeta, log_wn, theta = best.x
+    zeta, wn = math.exp(log_zeta), math.exp(log_wn)
+
+    res = residual(best.x, ts, yn)
+    ss_tot = float(np.sum((yn - yn.mean()) ** 2))
+    r2 = 1.0 - float(np.sum(res**2)) / ss_tot if ss_tot > 0 else 0.0
+    amplitude = g * m.amplitude
+    sp_change = None
+    if m.setpoint_before is not None and m.setpoint_after is not None:
+        sp_change = m.setpoint_after - m.setpoint_before
+    return ModelFit(
+        zeta=zeta, wn=wn, gain=amplitude / sp_change if sp_change else None,
+        dead_time=float(theta), amplitude=amplitude, fit_r2=r2,
+        fit_nrmse=float(np.sqrt(np.mean(res**2))),
+        bandwidth=so.bandwidth(zeta, wn), phase_margin_deg=so.phase_margin_deg(zeta),
+        settling_time_estimate=4.0 / (zeta * wn) if zeta < 1.0 else None,
+    )

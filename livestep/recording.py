@@ -1,0 +1,274 @@
+"""Reading livestep recordings (plain CSV, optionally gzip-compressed).
+
+Format: optional ``# key: value`` metadata lines, then a header row naming the
+columns, then one sample per row. Default columns ``t`` (seconds),
+``setpoint`` and ``feedback``; other columns are kept as extra channels.
+Files are read in blocks, so memory stays bounded whatever the file's length.
+"""
+
+from __future__ import annotations
+
+import gzip
+import math
+import warnings
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import BinaryIO
+
+import numpy as np
+
+from livestep.errors import InputError
+from livestep.samples import SampleChunk
+
+__all__ = ["ColumnMap", "ReadStats", "RecordingReader", "TIME_UNITS"]
+
+TIME_UNITS = {"s": 1.0, "ms": 1e-3, "us": 1e-6}
+_BLOCK_BYTES = 1 << 22
+_MAX_BAD_FRACTION = 0.1
+
+
+@dataclass(frozen=True, kw_only=True)
+class ColumnMap:
+    """Which columns hold time, setpoint and feedback (by header name, or a 1-based
+    position given as digits); ``time_unit`` is one of ``s``, ``ms``, ``us``.
+    ``setpoint=None`` means: use the ``setpoint`` column if there is one."""
+
+    time: str = "t"
+    setpoint: str | None = None
+    feedback: str = "feedback"
+    time_unit: str = "s"
+
+
+@dataclass
+class ReadStats:
+    """What the reader saw: data rows, rows skipped (with the first such line), repeated
+    timestamps dropped."""
+
+    rows: int = 0
+    good: int = 0
+    bad: int = 0
+    first_bad_line: int | None = None
+    repeated_time: int = 0
+    reasons: dict[str, int] = field(default_factory=dict)
+
+    def skip(self, line: int, reason: str) -> None:
+        self.bad += 1
+        self.reasons[reason] = self.reasons.get(reason, 0) + 1
+        if self.first_bad_line is None:
+            self.first_bad_line = line
+
+
+def _open(path: Path) -> BinaryIO:
+    try:
+        raw = path.open("rb")
+    except FileNotFoundError:
+        raise InputError(f"{path}: no such file") from None
+    except IsADirectoryError:
+        raise InputError(f"{path}: is a directory, not a recording") from None
+    except OSError as exc:
+        raise InputError(f"{path}: cannot open ({exc.strerror})") from None
+    magic = raw.peek(2)[:2] if hasattr(raw, "peek") else b""
+    if magic == b"\x1f\x8b":
+        return gzip.GzipFile(fileobj=raw)  # type: ignore[return-value]
+    return raw
+
+
+def _resolve(name: str, header: list[str], role: str) -> int:
+    if name in header:
+        return header.index(name)
+    if name.isdigit() and 1 <= int(name) <= len(header):
+        return int(name) - 1
+    raise InputError(f"no {role} column {name!r}; the header has: {', '.join(header)}")
+
+
+class RecordingReader:
+    """Iterate over a recording as :class:`SampleChunk` blocks.
+
+    Opening reads the metadata and header (and raises :class:`InputError` on a
+    file that is not a recording); iterating reads the data. ``stats`` fills in
+    as it goes; after the last chunk, too many bad rows raise :class:`InputError`.
+    """
+
+    def __init__(self, path: str | Path, columns: ColumnMap = ColumnMap()) -> None:
+        self.path = Path(path)
+        if columns.time_unit not in TIME_UNITS:
+            raise InputError(f"unknown time unit {columns.time_unit!r}; use s, ms or us")
+        self._scale = TIME_UNITS[columns.time_unit]
+        self.metadata: dict[str, str] = {}
+        self.stats = ReadStats()
+        self._fh = _open(self.path)
+        try:
+            self._read_header(columns)
+        except BaseException:
+            self._fh.close()
+            raise
+
+    # -- header -------------------------------------------------------------------
+    def _read_header(self, columns: ColumnMap) -> None:
+        line_no = 0
+        while True:
+            try:
+                raw = self._fh.readline(1 << 16)
+            except (OSError, EOFError, gzip.BadGzipFile) as exc:
+                raise InputError(f"{self.path}: unreadable ({exc})") from None
+            line_no += 1
+            if not raw:
+                raise InputError(f"{self.path}: empty file, no header row" if line_no == 1
+                                 else f"{self.path}: no header row")
+            if b"\x00" in raw:
+                raise InputError(f"{self.path}: binary data, not a CSV recording", line=line_no)
+            try:
+                text = raw.decode("utf-8").strip()
+            except UnicodeDecodeError:
+                raise InputError(f"{self.path}: not UTF-8 text, not a CSV recording",
+                                 line=line_no) from None
+            if not text:
+                continue
+            if text.startswith("#"):
+                key, sep, value = text[1:].partition(":")
+                if sep:
+                    self.metadata[key.strip()] = value.strip()
+                continue
+            break
+        header = [h.strip() for h in text.split(",")]
+        if len(header) < 2:
+            raise InputError(f"{self.path}: the header has one column ({header[0]!r}); need"
+                             " at least time and feedback, separated by commas", line=line_no)
+        if all(_is_number(h) for h in header):
+            raise InputError(f"{self.path}: the first row is numbers, not a header naming the"
+                             " columns", line=line_no)
+        self.header = header
+        self._ti = _resolve(columns.time, header, "time")
+        self._fi = _resolve(columns.feedback, header, "feedback")
+        if columns.setpoint is not None:
+            self._si: int | None = _resolve(columns.setpoint, header, "setpoint")
+        else:
+            self._si = header.index("setpoint") if "setpoint" in header else None
+        roles = {self._ti, self._fi} | ({self._si} if self._si is not None else set())
+        if len(roles) < 2 + (self._si is not None):
+            raise InputError("time, setpoint and feedback must be different columns")
+        self.extra_names = [h for i, h in enumerate(header) if i not in roles]
+        self._extra_idx = [i for i in range(len(header)) if i not in roles]
+        self._line = line_no  # last line consumed
+        self._last_t = -math.inf
+
+    @property
+    def has_setpoint(self) -> bool:
+        return self._si is not None
+
+    # -- data -----------------------------------------------------------------------
+    def __iter__(self) -> Iterator[SampleChunk]:
+        carry = b""
+        try:
+            while True:
+                try:
+                    block = self._fh.read(_BLOCK_BYTES)
+                except (OSError, EOFError, gzip.BadGzipFile) as exc:
+                    raise InputError(f"{self.path}: unreadable after line {self._line}"
+                                     f" ({exc})") from None
+                if not block:
+                    break
+                block = carry + block
+                cut = block.rfind(b"\n") + 1
+                carry = block[cut:]
+                if cut:
+                    chunk = self._parse(block[:cut])
+                    if chunk is not None:
+                        yield chunk
+            if carry.strip():
+                chunk = self._parse(carry + b"\n")
+                if chunk is not None:
+                    yield chunk
+        finally:
+            self._fh.close()
+        st = self.stats
+        if st.good == 0:
+            where = f" (first bad row at line {st.first_bad_line})" if st.first_bad_line else ""
+            raise InputError(f"{self.path}: no valid data rows after the header{where}")
+        if st.bad > _MAX_BAD_FRACTION * st.rows:
+            reason = max(st.reasons, key=st.reasons.__getitem__)
+            raise InputError(f"{self.path}: {st.bad} of {st.rows} data rows are bad ({reason});"
+                             f" first at line {st.first_bad_line}")
+
+    def _parse(self, block: bytes) -> SampleChunk | None:
+        ncol = len(self.header)
+        first_line = self._line + 1
+        nlines = block.count(b"\n")
+        self._line += nlines
+        self.stats.rows += nlines
+        data = None
+        if b"\r" in block:
+            block = block.replace(b"\r", b"")
+        if block.count(b",") == nlines * (ncol - 1) and b"\n\n" not in block:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", DeprecationWarning)
+                flat = np.fromstring(block.replace(b"\n", b","), sep=",")
+            if flat.size == nlines * ncol:
+                data = flat.reshape(nlines, ncol)
+                lines = np.arange(first_line, first_line + nlines)
+        if data is None:
+            data, lines = self._parse_slow(block, first_line)
+        roles = [self._ti, self._fi] + ([self._si] if self._si is not None else [])
+        finite = np.isfinite(data[:, roles]).all(axis=1)
+        if not finite.all():
+            for ln in lines[~finite]:
+                self.stats.skip(int(ln), "non-numeric or missing value")
+            data, lines = data[finite], lines[finite]
+        if data.shape[0] == 0:
+            return None
+        t = data[:, self._ti] * self._scale
+        prev = np.concatenate(([self._last_t], t[:-1]))
+        if np.any(t < prev):
+            back = int(np.argmax(t < prev))
+            raise InputError(f"{self.path}: time goes backwards", line=int(lines[back]))
+        fresh = t > prev
+        if not fresh.all():
+            self.stats.repeated_time += int((~fresh).sum())
+            data, t = data[fresh], t[fresh]
+        self._last_t = float(t[-1])
+        self.stats.good += t.size
+        return SampleChunk(
+            t=t, feedback=np.ascontiguousarray(data[:, self._fi]),
+            setpoint=np.ascontiguousarray(data[:, self._si]) if self._si is not None else None,
+            extras={n: np.ascontiguousarray(data[:, i])
+                    for n, i in zip(self.extra_names, self._extra_idx, strict=True)})
+
+    def _parse_slow(self, block: bytes, first_line: int) -> tuple[np.ndarray, np.ndarray]:
+        ncol = len(self.header)
+        rows: list[list[float]] = []
+        lines: list[int] = []
+        for k, raw in enumerate(block.split(b"\n")[:-1]):
+            ln = first_line + k
+            if not raw.strip() or raw.lstrip().startswith(b"#"):
+                self.stats.rows -= 1
+                continue
+            cells = raw.split(b",")
+            if len(cells) != ncol:
+                self.stats.skip(ln, f"{len(cells)} fields instead of {ncol}")
+                continue
+            row = []
+            for c in cells:
+                try:
+                    row.append(float(c))
+                except ValueError:
+                    row.append(math.nan)
+            rows.append(row)
+            lines.append(ln)
+        return (np.array(rows, dtype=float).reshape(-1, ncol), np.array(lines, dtype=np.intp))
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def read_all(path: str | Path, columns: ColumnMap = ColumnMap()) -> tuple[RecordingReader,
+                                                                         list[SampleChunk]]:
+    """Read a whole (small) recording: the reader, for its metadata and stats, and its chunks."""
+    reader = RecordingReader(path, columns)
+    return reader, list(reader)
+

@@ -1,0 +1,101 @@
+"""Step results as JSON documents, CSV rows and rich tables."""
+
+from __future__ import annotations
+
+import csv
+import json
+import math
+from collections.abc import Sequence
+from typing import IO, Any
+
+from rich.console import Console
+from rich.table import Table
+
+from livestep.analysis import StepResult
+
+__all__ = ["STEP_FIELDS", "analysis_document", "render_table", "step_record", "write_csv",
+           "write_json"]
+
+#: Keys of each step in the JSON document, in order (a stable contract).
+STEP_FIELDS = (
+    "index", "t_step", "direction", "setpoint_before", "setpoint_after", "initial", "final",
+    "amplitude", "rise_time", "delay_time", "peak_time", "peak", "overshoot_pct",
+    "undershoot_pct", "settling_time", "settled", "steady_state_error",
+    "steady_state_error_pct", "iae", "ise", "itae", "noise_sigma",
+)
+MODEL_FIELDS = ("zeta", "wn", "gain", "dead_time", "fit_r2", "fit_nrmse", "bandwidth",
+                "phase_margin_deg", "settling_time_estimate")
+ESTIMATE_FIELDS = ("zeta", "wn", "settling_time")
+
+
+def _clean(x: Any) -> Any:
+    if isinstance(x, float) and not math.isfinite(x):
+        return None
+    return x
+
+
+def step_record(r: StepResult) -> dict[str, Any]:
+    """One step as the JSON contract's dict (``None`` where undefined)."""
+    m = r.metrics
+    rec: dict[str, Any] = {"index": r.index}
+    rec.update({k: _clean(getattr(m, k)) for k in STEP_FIELDS[1:]})
+    rec["model"] = (None if r.model is None else
+                    {k: _clean(getattr(r.model, k)) for k in MODEL_FIELDS})
+    rec["closed_form"] = {k: _clean(getattr(r.estimate, k)) for k in ESTIMATE_FIELDS}
+    rec["sample_period"] = m.sample_period
+    rec["window_end"] = r.end_reason
+    rec["warnings"] = list(r.warnings)
+    return rec
+
+
+def analysis_document(source: str, samples: int, results: Sequence[StepResult],
+                      warnings: Sequence[str] = ()) -> dict[str, Any]:
+    """The whole analysis as one JSON-ready dict."""
+    return {"source": source, "samples": samples,
+            "steps": [step_record(r) for r in results], "warnings": list(warnings)}
+
+
+def write_json(doc: dict[str, Any], out: IO[str]) -> None:
+    json.dump(doc, out, indent=2, allow_nan=False)
+    out.write("\n")
+
+
+def write_csv(results: Sequence[StepResult], out: IO[str]) -> None:
+    """One row per step; model values as ``model_<name>``, warnings joined by ``; ``."""
+    w = csv.writer(out, lineterminator="\n")
+    w.writerow([*STEP_FIELDS, *(f"model_{k}" for k in MODEL_FIELDS), "warnings"])
+    for r in results:
+        rec = step_record(r)
+        model = rec["model"] or {}
+        w.writerow([*("" if rec[k] is None else rec[k] for k in STEP_FIELDS),
+                    *("" if model.get(k) is None else model[k] for k in MODEL_FIELDS),
+                    "; ".join(rec["warnings"])])
+
+
+def _ms(x: float | None) -> str:
+    return "-" if x is None else f"{1e3 * x:.2f}"
+
+
+def _num(x: float | None, fmt: str = ".4g") -> str:
+    return "-" if x is None else format(x, fmt)
+
+
+def render_table(results: Sequence[StepResult], console: Console, title: str) -> None:
+    """A rich table, one row per step, times in milliseconds."""
+    table = Table(title=title, header_style="bold", show_lines=False)
+    for name in ("#", "t_step s", "dir", "amplitude", "rise ms", "peak ms", "OS %",
+                 "settle ms", "SSE %", "IAE", "zeta", "wn rad/s", "dead ms", "R^2"):
+        table.add_column(name, justify="right")
+    for r in results:
+        m, f = r.metrics, r.model
+        settle = _ms(m.settling_time) if m.settled else "not settled"
+        table.add_row(
+            str(r.index), f"{m.t_step:.4f}", m.direction, _num(m.amplitude),
+            _ms(m.rise_time), _ms(m.peak_time), f"{m.overshoot_pct:.2f}", settle,
+            _num(m.steady_state_error_pct, ".2f"), _num(m.iae),
+            _num(f.zeta if f else None, ".3f"), _num(f.wn if f else None, ".4g"),
+            _ms(f.dead_time if f else None), _num(f.fit_r2 if f else None, ".4f"))
+    console.print(table)
+    for r in results:
+        for w in r.warnings:
+            console.print(f"[yellow]step {r.index}:[/] {w}")
