@@ -15,9 +15,13 @@ it lasts at most ``max_transition`` samples, is followed by at least
 none. The step instant is the first sample carrying the new setpoint value.
 
 Feedback mode (no setpoint column): a step starts at the first sample that
-leaves the noise band around the held feedback level and stays away (the
-median of the next ``hold_samples`` is outside the band too); the detector
-re-arms once the feedback has held a new level for ``hold_samples``.
+leaves the noise band (8 sigma) around the held feedback level and stays away
+(the median of the next ``hold_samples`` is outside the band too); the
+detector re-arms once the feedback has held a new level (block means of
+``hold_samples`` agreeing within the noise) for at least as long as it took
+to get there, between 2 and 10 blocks. The step instant is then when the
+feedback left the band, later than the setpoint moved by the dead time and
+the time to move 8 sigma; a ramp of the feedback is taken as a jump.
 """
 
 from __future__ import annotations
@@ -139,8 +143,10 @@ class StepDetector:
         self._open: _Open | None = None
         self._in_ramp = False
         self._count = 0
-        self._level: float | None = None  # feedback mode: held level
+        self._level: float | None = None  # feedback mode: held level, band, noise
         self._band = 0.0
+        self._sigma: float | None = None
+        self._moved_at: int | None = None
 
     # -- public -----------------------------------------------------------------
     def feed(self, t: FloatArray, feedback: FloatArray,
@@ -228,29 +234,15 @@ class StepDetector:
         end = self._buf.end
         while True:
             if self._level is None:
-                # Wait for a steady stretch of h samples: a new held level.
-                start = max(self._scan, self._hold_start)
-                if end - start < 2 * h:
+                if not self._find_hold(h, end):
                     return
-                fb = self._buf.col(1, start, end)
-                found = self._find_hold(fb, h)
-                if found is None:
-                    self._scan = end - 2 * h
-                    return
-                j = start + found
-                seg = self._buf.col(1, j, j + 2 * h)
-                sigma = noise_sigma(seg)
-                self._level = robust_level(seg)
-                self._band = max(8.0 * sigma, 0.5 * (s.min_step or 0.0))
-                self._hold_start = j
-                self._scan = j + 2 * h
                 continue
-            if end - self._scan < h:
+            if end - self._scan < h + 1:
                 return
             fb = self._buf.col(1, self._scan, end)
             away = np.flatnonzero(np.abs(fb[: fb.size - h] - self._level) > self._band)
             for k in away:
-                confirm = self._buf.col(1, self._scan + k + 1, self._scan + k + 1 + h)
+                confirm = fb[k + 1 : k + 1 + h]
                 if abs(float(np.median(confirm)) - self._level) > self._band:
                     break
             else:
@@ -265,17 +257,42 @@ class StepDetector:
                 pre_start = max(self._hold_start + (i - self._hold_start) // 2, i - s.pre_samples)
                 self._open = _Open(i, pre_start, None, None)
             self._level = None
+            self._moved_at = i
             self._scan = i + h
 
-    def _find_hold(self, fb: FloatArray, h: int) -> int | None:
-        """First index starting 2h samples whose two halves agree within the noise."""
-        n = (fb.size // h) * h
-        blocks = fb[:n].reshape(-1, h)
+    def _find_hold(self, h: int, end: int) -> bool:
+        """Look for a new held level: blocks of h samples from ``self._scan`` whose means
+        agree within the noise for at least 2h samples and at least as long as the
+        feedback took to get there since it moved (capped at 10h). Sets the level and band
+        when found."""
+        origin = self._scan
+        n_blocks = (end - origin) // h
+        if n_blocks < 2:
+            return False
+        blocks = self._buf.col(1, origin, origin + n_blocks * h).reshape(n_blocks, h)
         means = blocks.mean(axis=1)
-        spread = np.sqrt(np.mean(np.diff(blocks, axis=1) ** 2, axis=1) / 2.0)
-        ok = np.abs(np.diff(means)) <= 3.0 * (spread[:-1] + 1e-12) / np.sqrt(h) * 3.0
-        idx = np.flatnonzero(ok)
-        return int(idx[0]) * h if idx.size else None
+        sigma = self._sigma
+        if sigma is None:  # no noise estimate yet: from the blocks themselves
+            sigma = float(np.median(np.sqrt(np.mean(np.diff(blocks, axis=1) ** 2, axis=1) / 2)))
+        tol = 6.0 * sigma / np.sqrt(h) + 1e-12 * max(1.0, float(np.abs(means).max()))
+        for b in range(n_blocks - 1):
+            start = origin + b * h
+            since = start - self._moved_at if self._moved_at is not None else 0
+            need = min(max(2, -(-since // h)), 10)
+            if b + need > n_blocks:
+                self._scan = start
+                return False
+            seg = means[b : b + need]
+            if seg.max() - seg.min() <= tol:
+                hold = self._buf.col(1, start, start + need * h)
+                self._sigma = noise_sigma(hold)
+                self._level = robust_level(hold)
+                self._band = max(8.0 * self._sigma, 0.5 * (self.settings.min_step or 0.0))
+                self._hold_start = start
+                self._scan = start + need * h
+                return True
+        self._scan = origin + (n_blocks - 1) * h
+        return False
 
     # -- shared -----------------------------------------------------------------
     def _check_max_window(self, out: list[StepWindow], upto: int) -> None:

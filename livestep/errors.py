@@ -18,6 +18,8 @@ class InputError(Exception):
 
     exit_status = EXIT_BAD_INPUT
 
-    def __init__(self, message: str, *, line: int | None = None) -> None:
+    def __init__(self, message: str, *, source: str | None = None,
+                 line: int | None = None) -> None:
         self.line = line
-        super().__init__(f"line {line}: {message}" if line is not None else message)
+        where = ", ".join(x for x in (source, None if line is None else f"line {line}") if x)
+        super().__init__(f"{where}: {message}" if where else message)

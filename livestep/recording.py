@@ -117,11 +117,12 @@ class RecordingReader:
                 raise InputError(f"{self.path}: empty file, no header row" if line_no == 1
                                  else f"{self.path}: no header row")
             if b"\x00" in raw:
-                raise InputError(f"{self.path}: binary data, not a CSV recording", line=line_no)
+                raise InputError("binary data, not a CSV recording", source=str(self.path),
+                                 line=line_no)
             try:
                 text = raw.decode("utf-8").strip()
             except UnicodeDecodeError:
-                raise InputError(f"{self.path}: not UTF-8 text, not a CSV recording",
+                raise InputError("not UTF-8 text, not a CSV recording", source=str(self.path),
                                  line=line_no) from None
             if not text:
                 continue
@@ -133,11 +134,12 @@ class RecordingReader:
             break
         header = [h.strip() for h in text.split(",")]
         if len(header) < 2:
-            raise InputError(f"{self.path}: the header has one column ({header[0]!r}); need"
-                             " at least time and feedback, separated by commas", line=line_no)
+            raise InputError(f"the header has one column ({header[0]!r}); need at least time"
+                             " and feedback, separated by commas", source=str(self.path),
+                             line=line_no)
         if all(_is_number(h) for h in header):
-            raise InputError(f"{self.path}: the first row is numbers, not a header naming the"
-                             " columns", line=line_no)
+            raise InputError("the first row is numbers, not a header naming the columns",
+                             source=str(self.path), line=line_no)
         self.header = header
         self._ti = _resolve(columns.time, header, "time")
         self._fi = _resolve(columns.feedback, header, "feedback")
@@ -183,13 +185,12 @@ class RecordingReader:
         finally:
             self._fh.close()
         st = self.stats
-        if st.good == 0:
-            where = f" (first bad row at line {st.first_bad_line})" if st.first_bad_line else ""
-            raise InputError(f"{self.path}: no valid data rows after the header{where}")
         if st.bad > _MAX_BAD_FRACTION * st.rows:
             reason = max(st.reasons, key=st.reasons.__getitem__)
-            raise InputError(f"{self.path}: {st.bad} of {st.rows} data rows are bad ({reason});"
-                             f" first at line {st.first_bad_line}")
+            raise InputError(f"{st.bad} of {st.rows} data rows are bad ({reason}), first at"
+                             f" line {st.first_bad_line}", source=str(self.path))
+        if st.good == 0:
+            raise InputError("no valid data rows after the header", source=str(self.path))
 
     def _parse(self, block: bytes) -> SampleChunk | None:
         ncol = len(self.header)
@@ -203,7 +204,10 @@ class RecordingReader:
         if block.count(b",") == nlines * (ncol - 1) and b"\n\n" not in block:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", DeprecationWarning)
-                flat = np.fromstring(block.replace(b"\n", b","), sep=",")
+                try:
+                    flat = np.fromstring(block.replace(b"\n", b","), sep=",")
+                except ValueError:  # a cell that is not a number: the slow path finds it
+                    flat = np.empty(0)
             if flat.size == nlines * ncol:
                 data = flat.reshape(nlines, ncol)
                 lines = np.arange(first_line, first_line + nlines)
@@ -221,7 +225,8 @@ class RecordingReader:
         prev = np.concatenate(([self._last_t], t[:-1]))
         if np.any(t < prev):
             back = int(np.argmax(t < prev))
-            raise InputError(f"{self.path}: time goes backwards", line=int(lines[back]))
+            raise InputError("time goes backwards", source=str(self.path),
+                             line=int(lines[back]))
         fresh = t > prev
         if not fresh.all():
             self.stats.repeated_time += int((~fresh).sum())

@@ -1,0 +1,135 @@
+"""`livestep analyze`: outputs, the JSON contract, and bad input."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy import signal
+
+from livestep.cli import main
+
+ROOT = Path(__file__).resolve().parent.parent
+ZETA, WN, RATE = 0.4, 30.0, 2000.0
+STEP_KEYS = {"index", "t_step", "direction", "setpoint_before", "setpoint_after", "initial",
+             "final", "amplitude", "rise_time", "delay_time", "peak_time", "peak",
+             "overshoot_pct", "undershoot_pct", "settling_time", "settled",
+             "steady_state_error", "steady_state_error_pct", "iae", "ise", "itae",
+             "noise_sigma", "model", "warnings"}
+MODEL_KEYS = {"zeta", "wn", "gain", "dead_time", "fit_r2"}
+
+
+@pytest.fixture(scope="module")
+def recording(tmp_path_factory) -> Path:
+    """Three steps (up, down, up from an offset) of wn^2/(s^2 + 2 zeta wn s + wn^2),
+    simulated by scipy.signal.lsim, written with 6 decimals."""
+    t = np.arange(int(6 * RATE)) / RATE
+    sp = np.select([t < 1.5, t < 3.0, t < 4.5], [10.0, 12.0, 9.0], 9.5)
+    sys_ = signal.TransferFunction([WN**2], [1.0, 2 * ZETA * WN, WN**2])
+    _, y, _ = signal.lsim(sys_, sp - sp[0], t)
+    path = tmp_path_factory.mktemp("rec") / "axis.csv"
+    with path.open("w") as fh:
+        fh.write("# source: simulated axis\nt,setpoint,feedback\n")
+        np.savetxt(fh, np.column_stack((t, sp, sp[0] + y)), fmt="%.6f", delimiter=",")
+    return path
+
+
+def run_cli(capsys, *argv: str) -> tuple[int, str, str]:
+    status = main(list(argv))
+    out, err = capsys.readouterr()
+    return status, out, err
+
+
+def test_json_contract_and_values(capsys, recording):
+    status, out, err = run_cli(capsys, "analyze", str(recording), "--json")
+    assert status == 0, err
+    doc = json.loads(out)
+    assert doc["source"] == str(recording) and doc["samples"] == 12000
+    steps = doc["steps"]
+    assert [s["direction"] for s in steps] == ["up", "down", "up"]
+    assert [s["t_step"] for s in steps] == pytest.approx([1.5, 3.0, 4.5])
+    # Closed form (Ogata): %OS = 100 exp(-zeta pi / sqrt(1 - zeta^2)), Tp = pi / wd.
+    os_pct = 100 * math.exp(-ZETA * math.pi / math.sqrt(1 - ZETA**2))
+    tp = math.pi / (WN * math.sqrt(1 - ZETA**2))
+    for s in steps:
+        assert STEP_KEYS <= s.keys() and MODEL_KEYS <= s["model"].keys()
+        assert s["overshoot_pct"] == pytest.approx(os_pct, abs=0.3)
+        assert s["peak_time"] == pytest.approx(tp, rel=0.01)
+        assert s["settled"] is True
+        assert s["model"]["zeta"] == pytest.approx(ZETA, rel=0.03)
+        assert s["model"]["wn"] == pytest.approx(WN, rel=0.03)
+        assert s["model"]["gain"] == pytest.approx(1.0, abs=0.01)
+        assert s["amplitude"] == pytest.approx(s["setpoint_after"] - s["setpoint_before"],
+                                               abs=0.002 * abs(s["amplitude"]))
+
+
+def test_csv_output_has_one_row_per_step(capsys, recording):
+    status, out, _ = run_cli(capsys, "analyze", str(recording), "--csv")
+    assert status == 0
+    rows = list(csv.DictReader(io.StringIO(out)))
+    assert len(rows) == 3 and {"rise_time", "model_zeta"} <= rows[0].keys()
+    assert [r["direction"] for r in rows] == ["up", "down", "up"]
+
+
+def test_table_output(capsys, recording):
+    status, out, _ = run_cli(capsys, "analyze", str(recording))
+    assert status == 0 and "3 steps" in out
+
+
+def test_settings_reach_the_measurement(capsys, recording):
+    _, out, _ = run_cli(capsys, "analyze", str(recording), "--json")
+    _, wide, _ = run_cli(capsys, "analyze", str(recording), "--json", "--settling-band", "5",
+                         "--rise-levels", "5,95", "--no-fit")
+    narrow_s, wide_s = json.loads(out)["steps"][0], json.loads(wide)["steps"][0]
+    assert wide_s["settling_time"] < narrow_s["settling_time"]
+    assert wide_s["rise_time"] > narrow_s["rise_time"]
+    assert wide_s["model"] is None
+
+
+@pytest.mark.parametrize(("argv", "message"), [
+    (["analyze", "/nonexistent.csv"], "no such file"),
+    (["analyze", "{file}", "--rise-levels", "90,10"], "rise levels"),
+    (["analyze", "{file}", "--settling-band", "-1"], "positive"),
+    (["analyze", "{file}", "--time-unit", "h"], "invalid choice"),
+    (["analyze", "{file}", "--feedback", "nope"], "no feedback column 'nope'"),
+    (["frobnicate"], "invalid choice"),
+])
+def test_bad_options_are_one_line_with_status_2(capsys, recording, argv, message):
+    argv = [a.replace("{file}", str(recording)) for a in argv]
+    status, out, err = run_cli(capsys, *argv)
+    assert status == 2
+    assert message in err and err.count("\n") == 1 and "Traceback" not in err
+
+
+def test_bad_file_through_python_m(tmp_path):
+    bad = tmp_path / "junk.csv"
+    bad.write_bytes(bytes(range(256)) * 10)
+    proc = subprocess.run([sys.executable, "-m", "livestep", "analyze", str(bad)],
+                          capture_output=True, text=True, cwd=ROOT)
+    assert proc.returncode == 2
+    assert proc.stderr.startswith("livestep: error:") and proc.stderr.count("\n") == 1
+
+
+def test_skipped_cells_are_reported(capsys, tmp_path, recording):
+    lines = recording.read_text().splitlines(keepends=True)
+    lines[100] = "0.049,10.0,n/a\n"
+    path = tmp_path / "gappy.csv"
+    path.write_text("".join(lines))
+    status, out, err = run_cli(capsys, "analyze", str(path), "--json")
+    assert status == 0
+    assert "skipped 1 bad data rows (first at line 101)" in err
+    assert json.loads(out)["samples"] == 11999
+
+
+def test_shipped_example_runs(capsys):
+    status, out, err = run_cli(capsys, "analyze", str(ROOT / "fixtures" / "belt-axis.csv"),
+                               "--json")
+    assert status == 0, err
+    assert len(json.loads(out)["steps"]) == 8

@@ -1,0 +1,99 @@
+"""Reading recordings: format, options, and bad input."""
+
+from __future__ import annotations
+
+import gzip
+
+import numpy as np
+import pytest
+
+from livestep.errors import InputError
+from livestep.recording import ColumnMap, RecordingReader, read_all
+
+GOOD = "# source: bench 3\n# units: mm\nt,setpoint,feedback,current\n" + "".join(
+    f"{k * 0.001:.3f},{1.0 if k >= 5 else 0.0},{0.1 * k:.1f},{k}\n" for k in range(10))
+
+
+def test_reads_metadata_columns_and_extras(write_file):
+    reader, chunks = read_all(write_file("a.csv", GOOD))
+    assert reader.metadata == {"source": "bench 3", "units": "mm"}
+    assert reader.has_setpoint and reader.extra_names == ["current"]
+    (c,) = chunks
+    assert np.allclose(c.t, np.arange(10) * 0.001)
+    assert np.array_equal(c.setpoint, [0.0] * 5 + [1.0] * 5)
+    assert np.allclose(c.feedback, np.arange(10) * 0.1)
+    assert np.array_equal(c.extras["current"], np.arange(10))
+    assert reader.stats.good == 10 and reader.stats.bad == 0
+
+
+def test_gzip_reads_the_same(tmp_path):
+    path = tmp_path / "a.csv.gz"
+    with gzip.open(path, "wt") as fh:
+        fh.write(GOOD)
+    _, chunks = read_all(path)
+    assert np.allclose(chunks[0].feedback, np.arange(10) * 0.1)
+
+
+def test_crlf_and_blank_lines(write_file):
+    text = GOOD.replace("\n", "\r\n").replace("0.005,", "\r\n0.005,")
+    reader, chunks = read_all(write_file("a.csv", text))
+    assert sum(len(c) for c in chunks) == 10 and reader.stats.bad == 0
+
+
+def test_column_options_and_time_unit(write_file):
+    text = "time_ms,cmd,pos\n" + "".join(f"{k},{k // 5},{k * 2}\n" for k in range(10))
+    reader, chunks = read_all(write_file("a.csv", text), ColumnMap(
+        time="time_ms", setpoint="cmd", feedback="pos", time_unit="ms"))
+    assert np.allclose(chunks[0].t, np.arange(10) * 1e-3)
+    assert np.array_equal(chunks[0].setpoint, np.arange(10) // 5)
+    by_position, _ = read_all(write_file("b.csv", text), ColumnMap(time="1", feedback="3"))
+    assert not by_position.has_setpoint  # no column named 'setpoint' and none given
+
+
+def test_bad_cells_are_skipped_and_counted(write_file):
+    lines = GOOD.splitlines(keepends=True)
+    lines[6] = "0.003,0.0,oops,3\n"  # data line 7 of the file
+    body = "".join(lines) + "".join(f"{k * 0.001:.3f},1.0,1.0,0\n" for k in range(10, 40))
+    reader, chunks = read_all(write_file("a.csv", body))
+    assert reader.stats.bad == 1 and reader.stats.first_bad_line == 7
+    assert sum(len(c) for c in chunks) == 39
+
+
+def test_bad_extra_cell_keeps_the_row(write_file):
+    text = GOOD.replace("0.004,0.0,0.4,4", "0.004,0.0,0.4,")
+    reader, chunks = read_all(write_file("a.csv", text))
+    assert reader.stats.bad == 0 and np.isnan(chunks[0].extras["current"][4])
+
+
+@pytest.mark.parametrize(("content", "message"), [
+    ("", "empty file"),
+    ("t,setpoint,feedback\n", "no valid data rows"),
+    ("# only: comments\n", "no header row"),
+    ("t\n0\n1\n", "one column"),
+    ("1,2,3\n4,5,6\n", "first row is numbers"),
+    ("t,setpoint,feedback\n0,0,0\n0.2,0,0\n0.1,0,0\n", "line 4: time goes backwards"),
+    ("t,setpoint,feedback\n" + "a,b,c\n" * 20, "20 of 20 data rows are bad"),
+    (b"\x00\x01\x02binary\xff\xfe", "binary data"),
+    (b"t,set\xffpoint,feedback\n", "not UTF-8"),
+    ("x,y,z\n1,2,3\n", "no time column 't'"),
+])
+def test_bad_input_is_one_clear_error(write_file, content, message):
+    path = write_file("bad.csv", content)
+    with pytest.raises(InputError) as err:
+        read_all(path)
+    assert message in str(err.value)
+    assert "\n" not in str(err.value)
+
+
+def test_missing_file():
+    with pytest.raises(InputError, match="no such file"):
+        RecordingReader("/nonexistent/x.csv")
+
+
+def test_long_file_reads_in_bounded_blocks(write_file):
+    n = 300_000
+    t = np.arange(n) * 1e-4
+    text = "t,setpoint,feedback\n" + "".join(f"{x:.4f},0,{x:.4f}\n" for x in t)
+    chunks = list(RecordingReader(write_file("long.csv", text)))
+    assert len(chunks) > 1  # read in several blocks, not at once
+    assert np.allclose(np.concatenate([c.t for c in chunks]), t)
