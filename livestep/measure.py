@@ -44,7 +44,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import NDArray
 from scipy.integrate import trapezoid
-from scipy.signal import savgol_filter
+from scipy.ndimage import uniform_filter1d
+from scipy.signal import oaconvolve, savgol_coeffs
 from scipy.stats import trim_mean
 
 __all__ = ["MeasureSettings", "StepMetrics", "measure_step", "noise_sigma", "robust_level"]
@@ -153,10 +154,12 @@ def _odd(n: float, lo: int) -> int:
     return k if k % 2 else k + 1
 
 
-def _smooth(r: FloatArray, window: int) -> FloatArray:
-    if window < 5 or r.size < window:
-        return r
-    return savgol_filter(r, window, 3)
+def _smooth(y: FloatArray, window: int) -> FloatArray:
+    """Cubic Savitzky-Golay smoothing (zero phase), mirrored at the ends, by FFT convolution."""
+    half = window // 2
+    if window < 5 or y.size <= 2 * half:
+        return y
+    return oaconvolve(np.pad(y, half, mode="reflect"), savgol_coeffs(window, 3), mode="valid")
 
 
 def _settling(tg: FloatArray, r: FloatArray, start: int, band: float) -> tuple[float | None, int]:
@@ -228,26 +231,25 @@ def measure_step(
         return robust_level(sel)
 
     final = tail_final(t_step + 0.8 * span)
+    amp = final - initial
+    band = settings.settling_band / 100.0
     window = 1
-    settle_t: float | None = None
+    ys = yg
+    if abs(amp) >= 5.0 * sigma and sigma > 1e-6 * abs(amp) and dt > 0:
+        # Smooth over 0.4 of the rise time: a cubic fit that short follows the response
+        # closely. The rise time comes from a coarse moving average first.
+        coarse = (uniform_filter1d(yg, _odd(yg.size / 20, 5), mode="nearest") - initial) / amp
+        lo_t = _first_crossing(tg, coarse, 0.1, g0)
+        hi_t = _first_crossing(tg, coarse, 0.9, g0)
+        if lo_t is not None and hi_t is not None:
+            window = _odd(0.4 * (hi_t - lo_t) / dt, 1)
+            window = window if window >= 5 else 1
+            ys = _smooth(yg, window)
     for _ in range(3):
         amp = final - initial
         if amp == 0.0 or abs(amp) < 5.0 * sigma:
             break
-        band = settings.settling_band / 100.0
-        r_raw = (yg - initial) / amp
-        window = 1
-        if sigma > 1e-6 * abs(amp):
-            # Smooth over a length short against the rise time (a cubic fit over 0.4 of the
-            # rise time follows the response closely) and never more than needed.
-            coarse = _smooth(r_raw, _odd(r_raw.size / 20, 5))
-            lo_t = _first_crossing(tg, coarse, 0.1, g0)
-            hi_t = _first_crossing(tg, coarse, 0.9, g0)
-            if lo_t is not None and hi_t is not None and dt > 0:
-                window = _odd(0.4 * (hi_t - lo_t) / dt, 1)
-                window = window if window >= 5 else 1
-        r = _smooth(r_raw, window)
-        settle_t, _ = _settling(tg, r, g0, band)
+        settle_t, _ = _settling(tg, (ys - initial) / amp, g0, band)
         if settle_t is None:
             break
         new_final = tail_final(max(t_step + 0.8 * span, 0.5 * (settle_t + post_t[-1])))
@@ -268,8 +270,7 @@ def measure_step(
             steady_state_error_pct=None, iae=None, ise=None, itae=None, noise_sigma=sigma,
             sample_period=dt, smoothing_samples=window, warnings=tuple(warnings))
 
-    band = settings.settling_band / 100.0
-    r = _smooth((yg - initial) / amp, window)
+    r = (ys - initial) / amp
     resid = sigma / abs(amp) * (1.5 / math.sqrt(window) if window >= 5 else 1.0)
     lo, hi = (x / 100.0 for x in settings.rise_levels)
     t_lo = _first_crossing(tg, r, lo, g0)

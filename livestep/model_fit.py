@@ -27,7 +27,7 @@ from livestep.measure import StepMetrics
 __all__ = ["ClosedFormEstimate", "ModelFit", "closed_form_estimate", "fit_second_order"]
 
 FloatArray = NDArray[np.float64]
-_MAX_BINS = 300
+_MAX_BINS = 200
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -141,15 +141,8 @@ def fit_second_order(
     x0 = np.array([0.0, 1.0, math.log(zeta0), math.log(wn0), min(theta0, 0.4 * span)])
     lower = [-0.5, 0.5, math.log(0.005), math.log(wn0) - 3.0, 0.0]
     upper = [0.5, 1.5, math.log(50.0), math.log(wn0) + 3.0, 0.5 * span]
-    best = None
-    starts = [x0]
-    if theta0 > 0:
-        starts.append(np.array([0.0, 1.0, math.log(zeta0), math.log(wn0), 0.0]))
-    for start in starts:
-        sol = least_squares(residual, np.clip(start, lower, upper), bounds=(lower, upper),
-                            args=(tb, yb), x_scale=[0.1, 0.1, 0.5, 0.5, 1.0 / wn0], method="trf")
-        if best is None or sol.cost < best.cost:
-            best = sol
+    best = least_squares(residual, np.clip(x0, lower, upper), bounds=(lower, upper),
+                         args=(tb, yb), x_scale=[0.1, 0.1, 0.5, 0.5, 1.0 / wn0], method="trf")
     c0, g, log_zeta, log_wn, theta = best.x
     zeta, wn = math.exp(log_zeta), math.exp(log_wn)
 
