@@ -1,0 +1,1 @@
+"""Decoders: bytes in, timestamped :class:`~livestep.samples.SampleChunk` batches out."""
