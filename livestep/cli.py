@@ -8,14 +8,20 @@ from __future__ import annotations
 
 import argparse
 import sys
+import time
 from collections.abc import Sequence
+from pathlib import Path
 
 from livestep import __version__
 from livestep.analysis import AnalysisSettings, analyze_chunks
+from livestep.decode.text import DELIMITERS, TextFormat
+from livestep.decode.timebase import ClockSettings
 from livestep.detect import DetectorSettings
 from livestep.errors import EXIT_INTERRUPTED, EXIT_OK, InputError
+from livestep.live import run_live, run_replay
 from livestep.measure import MeasureSettings
 from livestep.recording import TIME_UNITS, ColumnMap, RecordingReader
+from livestep.session import Decoder, make_decoder
 
 __all__ = ["main"]
 
@@ -43,6 +49,73 @@ def _positive(text: str) -> float:
     return x
 
 
+def _add_analysis_options(p: argparse.ArgumentParser) -> None:
+    m = p.add_argument_group("measurement")
+    m.add_argument("--min-step", type=_positive, metavar="X",
+                   help="smallest setpoint change that is a step, setpoint units (default:"
+                   " 10 x the feedback noise before it)")
+    m.add_argument("--rise-levels", type=_levels, default=(10.0, 90.0), metavar="LO,HI",
+                   help="rise-time reference levels, %% of amplitude (default 10,90)")
+    m.add_argument("--settling-band", type=_positive, default=2.0, metavar="PCT",
+                   help="settling band, +-%% of amplitude (default 2)")
+    m.add_argument("--max-window", type=_positive, default=120.0, metavar="S",
+                   help="longest step window, seconds (default 120)")
+    m.add_argument("--no-fit", action="store_true", help="skip the second-order model fit")
+
+
+def _analysis_settings(args: argparse.Namespace) -> AnalysisSettings:
+    try:
+        return AnalysisSettings(
+            detect=DetectorSettings(min_step=args.min_step, max_window=args.max_window),
+            measure=MeasureSettings(rise_levels=args.rise_levels,
+                                    settling_band=args.settling_band),
+            fit_model=not args.no_fit)
+    except ValueError as exc:
+        raise InputError(str(exc)) from None
+
+
+def _add_stream_options(p: argparse.ArgumentParser) -> None:
+    d = p.add_argument_group("stream decoding")
+    d.add_argument("--format", choices=("auto", "text", "binary"), default="auto",
+                   help="text lines or binary frames (default: detected)")
+    d.add_argument("--delimiter", choices=sorted(DELIMITERS),
+                   help="text field delimiter (default: detected)")
+    d.add_argument("--pairs", action="store_true", help="text lines are name=value pairs")
+    d.add_argument("--names", metavar="A,B,...",
+                   help="column names of a text stream without a header")
+    d.add_argument("--channels", default="setpoint,feedback", metavar="A,B,...",
+                   help="roles of the binary frame channels (default setpoint,feedback)")
+    d.add_argument("--time", default="t", metavar="COL", help="time column (default t)")
+    d.add_argument("--setpoint", metavar="COL", help="setpoint column (default setpoint)")
+    d.add_argument("--feedback", default="feedback", metavar="COL",
+                   help="feedback column (default feedback)")
+    d.add_argument("--time-unit", choices=("s", "ms", "us", "ticks"),
+                   help="unit of the device time (default s for text, us for binary)")
+    d.add_argument("--tick-rate", type=_positive, metavar="HZ", help="rate of the time ticks")
+    d.add_argument("--wrap", type=int, choices=(16, 32),
+                   help="the device time is a counter of this many bits that wraps"
+                   " (binary frames: 32)")
+    d.add_argument("--rate", type=_positive, metavar="HZ",
+                   help="no device time: stamp samples on the host from their count at this rate")
+
+
+def _decoder(args: argparse.Namespace) -> Decoder:
+    try:
+        clock = ClockSettings(unit=args.time_unit or "s", tick_rate=args.tick_rate,
+                              wrap_bits=args.wrap, host_rate=args.rate)
+        binary_clock = ClockSettings(unit=args.time_unit or "us", tick_rate=args.tick_rate,
+                                     wrap_bits=args.wrap or 32)
+    except ValueError as exc:
+        raise InputError(str(exc)) from None
+    text = TextFormat(
+        delimiter=DELIMITERS[args.delimiter] if args.delimiter else None,
+        pairs=True if args.pairs else None,
+        names=tuple(args.names.split(",")) if args.names else None,
+        time=None if args.rate else args.time, setpoint=args.setpoint, feedback=args.feedback)
+    return make_decoder(args.format, text=text, clock=clock, binary_clock=binary_clock,
+                        channels=tuple(args.channels.split(",")))
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = _Parser(prog="livestep", description="Find and measure setpoint step tests in "
                 "closed-loop controller data.")
@@ -63,29 +136,51 @@ def build_parser() -> argparse.ArgumentParser:
                       help="feedback column (default feedback)")
     cols.add_argument("--time-unit", default="s", choices=sorted(TIME_UNITS),
                       help="unit of the time column (default s)")
-    m = a.add_argument_group("measurement")
-    m.add_argument("--min-step", type=_positive, metavar="X",
-                   help="smallest setpoint change that is a step, setpoint units (default:"
-                   " 10 x the feedback noise before it)")
-    m.add_argument("--rise-levels", type=_levels, default=(10.0, 90.0), metavar="LO,HI",
-                   help="rise-time reference levels, %% of amplitude (default 10,90)")
-    m.add_argument("--settling-band", type=_positive, default=2.0, metavar="PCT",
-                   help="settling band, +-%% of amplitude (default 2)")
-    m.add_argument("--max-window", type=_positive, default=120.0, metavar="S",
-                   help="longest step window, seconds (default 120)")
-    m.add_argument("--no-fit", action="store_true", help="skip the second-order model fit")
+    _add_analysis_options(a)
+
+    live = sub.add_parser("live", help="measure steps live from a serial port or URL,"
+                          " recording everything")
+    live.add_argument("port", help="device path (/dev/ttyUSB0, /dev/serial/by-id/...) or"
+                      " pyserial URL (socket://host:port, rfc2217://host:port, loop://)")
+    sp = live.add_argument_group("serial port")
+    sp.add_argument("--baud", type=int, default=115200, help="baud rate (default 115200)")
+    sp.add_argument("--parity", choices=("N", "E", "O"), default="N", help="parity (default N)")
+    sp.add_argument("--shared", action="store_true",
+                    help="do not lock the port against other programs")
+    sp.add_argument("--dtr", choices=("on", "off"), help="drive DTR on open (may reset boards)")
+    sp.add_argument("--rts", choices=("on", "off"), help="drive RTS on open")
+    rec = live.add_argument_group("recording")
+    rec.add_argument("--record", metavar="FILE",
+                     help="recording file (default livestep-YYYYmmdd-HHMMSS.csv; never"
+                     " overwritten)")
+    rec.add_argument("--no-record", action="store_true", help="do not record the samples")
+    rec.add_argument("--raw", metavar="FILE", help="also capture the raw bytes to FILE")
+    live.add_argument("--duration", type=_positive, metavar="S",
+                      help="stop after S seconds (default: run until Ctrl-C)")
+    live.add_argument("--json-lines", action="store_true",
+                      help="print each step as one JSON object per line")
+    _add_stream_options(live)
+    _add_analysis_options(live)
+
+    rp = sub.add_parser("replay", help="play a recording or raw capture through the live path")
+    rp.add_argument("file", help="recording (CSV) or raw byte capture")
+    pace = rp.add_mutually_exclusive_group()
+    pace.add_argument("--speed", type=_positive, default=1.0,
+                      help="speed factor against real time (default 1)")
+    pace.add_argument("--fast", action="store_true", help="as fast as possible")
+    rp.add_argument("--json", action="store_true",
+                    help="at the end, one JSON document as from analyze --json")
+    rp.add_argument("--json-lines", action="store_true",
+                    help="print each step as one JSON object per line")
+    _add_stream_options(rp)
+    _add_analysis_options(rp)
+
+    sub.add_parser("ports", help="list the serial ports present")
     return p
 
 
 def _analyze(args: argparse.Namespace) -> int:
-    try:
-        settings = AnalysisSettings(
-            detect=DetectorSettings(min_step=args.min_step, max_window=args.max_window),
-            measure=MeasureSettings(rise_levels=args.rise_levels,
-                                    settling_band=args.settling_band),
-            fit_model=not args.no_fit)
-    except ValueError as exc:
-        raise InputError(str(exc)) from None
+    settings = _analysis_settings(args)
     reader = RecordingReader(args.file, ColumnMap(
         time=args.time, setpoint=args.setpoint, feedback=args.feedback,
         time_unit=args.time_unit))
@@ -115,13 +210,51 @@ def _analyze(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _live(args: argparse.Namespace) -> int:
+    from livestep.sources.serial_port import PortSettings
+
+    port = PortSettings(url=args.port, baudrate=args.baud, parity=args.parity,
+                        exclusive=not args.shared,
+                        dtr=None if args.dtr is None else args.dtr == "on",
+                        rts=None if args.rts is None else args.rts == "on")
+    record = None
+    if not args.no_record:
+        record = Path(args.record or time.strftime("livestep-%Y%m%d-%H%M%S.csv"))
+    return run_live(port, _decoder(args), _analysis_settings(args), record=record,
+                    raw=Path(args.raw) if args.raw else None, duration=args.duration,
+                    json_lines=args.json_lines)
+
+
+def _replay(args: argparse.Namespace) -> int:
+    return run_replay(Path(args.file), _decoder(args), _analysis_settings(args),
+                      speed=None if args.fast else args.speed, json_doc=args.json,
+                      json_lines=args.json_lines)
+
+
+def _ports(args: argparse.Namespace) -> int:
+    from rich.console import Console
+    from rich.table import Table
+
+    from livestep.sources.ports import list_serial_ports
+
+    ports = list_serial_ports()
+    console = Console()
+    if not ports:
+        console.print("no serial ports found (pseudo-terminals are not listed)")
+        return EXIT_OK
+    table = Table("device", "stable path", "description", "hardware id")
+    for p in ports:
+        table.add_row(p.device, p.stable, p.description, p.hwid)
+    console.print(table)
+    return EXIT_OK
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit status."""
     try:
         args = build_parser().parse_args(argv)
-        if args.command == "analyze":
-            return _analyze(args)
-        raise InputError(f"unknown command {args.command!r}")
+        command = {"analyze": _analyze, "live": _live, "replay": _replay, "ports": _ports}
+        return command[args.command](args)
     except InputError as exc:
         print(f"livestep: error: {exc}", file=sys.stderr)
         return exc.exit_status

@@ -91,6 +91,11 @@ class Timebase:
         """Median sample period seen so far, seconds."""
         return self._period
 
+    def new_segment(self) -> None:
+        """Start a new segment now (a restart marked in the stream itself)."""
+        self.segment += 1
+        self.counters.restarts += 1
+
     def stamp(self, raw: NDArray[np.float64] | None, n: int) -> Stamped:
         """Seconds for the next ``n`` samples with raw device times ``raw`` (or none)."""
         if raw is None:

@@ -1,0 +1,1 @@
+"""Sinks: where decoded samples and step results go (recordings, the console, the UI)."""

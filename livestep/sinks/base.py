@@ -1,0 +1,30 @@
+"""The listener interface every sink implements."""
+
+from __future__ import annotations
+
+from livestep.analysis import StepResult
+from livestep.samples import SampleChunk
+
+__all__ = ["Sink"]
+
+
+class Sink:
+    """Base for the listeners of a session; override what you need."""
+
+    def on_bytes(self, data: bytes) -> None:
+        """Raw bytes as received."""
+
+    def on_chunk(self, chunk: SampleChunk) -> None:
+        """Decoded samples."""
+
+    def on_step(self, result: StepResult) -> None:
+        """A step whose window has closed, measured and modelled."""
+
+    def on_state(self, state: str) -> None:
+        """Link state: connected, disconnected, ..."""
+
+    def on_tick(self) -> None:
+        """Called now and then, with or without data (periodic flushing)."""
+
+    def close(self) -> None:
+        """End of the session."""

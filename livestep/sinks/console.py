@@ -1,0 +1,70 @@
+"""Plain console output for live sessions and replays: one line per step and state."""
+
+from __future__ import annotations
+
+import json
+
+from rich.console import Console
+from rich.table import Table
+
+from livestep.analysis import StepResult
+from livestep.decode.counters import LinkCounters
+from livestep.sinks.base import Sink
+
+__all__ = ["ConsoleSink", "JsonLinesSink", "counters_table", "step_line"]
+
+
+def _ms(x: float | None) -> str:
+    return "-" if x is None else f"{1e3 * x:.1f} ms"
+
+
+def step_line(r: StepResult) -> str:
+    """One line summing up a step: amplitude, rise, overshoot, settling, model."""
+    m, f = r.metrics, r.model
+    settle = _ms(m.settling_time) if m.settled else "not settled"
+    model = f", zeta {f.zeta:.3f}, wn {f.wn:.4g} rad/s" if f is not None else ""
+    return (f"step {r.index} at {m.t_step:.3f} s: {m.direction} {m.amplitude:+.4g},"
+            f" rise {_ms(m.rise_time)}, overshoot {m.overshoot_pct:.1f} %,"
+            f" settling {settle}{model}")
+
+
+def counters_table(c: LinkCounters) -> Table:
+    """The link counters as a small table."""
+    snap = c.snapshot()
+    table = Table(title="link", show_header=False)
+    table.add_column("counter")
+    table.add_column("value", justify="right")
+    for key in ("bytes", "samples", "bad_total", "gaps", "lost", "resyncs", "reconnects",
+                "log_lines", "restarts"):
+        table.add_row(key.replace("_", " "), str(snap[key]))
+    for reason, n in sorted(snap["bad"].items()):
+        table.add_row(f"  bad: {reason}", str(n))
+    return table
+
+
+class ConsoleSink(Sink):
+    """Prints each step and each state change."""
+
+    def __init__(self, console: Console) -> None:
+        self.console = console
+
+    def on_step(self, result: StepResult) -> None:
+        self.console.print(step_line(result), highlight=False)
+        for w in result.warnings:
+            self.console.print(f"  [yellow]{w}[/]")
+
+    def on_state(self, state: str) -> None:
+        self.console.print(f"[bold]link {state}[/]")
+
+
+class JsonLinesSink(Sink):
+    """Writes each step as one JSON object per line (the step shape of ``analyze --json``)."""
+
+    def __init__(self, out) -> None:  # noqa: ANN001 - any text stream
+        self.out = out
+
+    def on_step(self, result: StepResult) -> None:
+        from livestep.report import step_record
+
+        self.out.write(json.dumps(step_record(result), allow_nan=False) + "\n")
+        self.out.flush()

@@ -1,0 +1,1 @@
+"""Sources of bytes: serial ports (and pyserial URLs), recordings to replay."""
