@@ -115,73 +115,86 @@ class TextDecoder:
         """End of stream: decode a last line without a newline."""
         tail, self._carry = self._carry, b""
         out = self._lines(tail + b"\n") if tail.strip() else []
-        if not self.ready and self._pending:
-            self._decide()
-            out += self._lines(b"")
+        if not self.ready and self._pending and self._decide():
+            out += self._decode(b"")
         return out
 
     # -- lines --------------------------------------------------------------------
     def _lines(self, block: bytes) -> list[SampleChunk]:
         if b"\r" in block:
             block = block.replace(b"\r", b"")
-        if not self.ready:
-            lines = block.split(b"\n")[:-1] if block else []
-            for k, line in enumerate(lines):
-                if not line.strip():
-                    continue
-                self._pending.append(line)
-                if self._looks_numeric(line):
-                    self._numeric_seen += 1
-                if self._numeric_seen >= _DETECT_LINES or len(self._pending) > 200:
-                    self._decide()
-                    rest = b"\n".join(lines[k + 1:]) + b"\n" if k + 1 < len(lines) else b""
-                    return self._decode(rest)
-            return []
-        return self._decode(block)
+        if self.ready:
+            return self._decode(block)
+        lines = block.split(b"\n")[:-1] if block else []
+        for k, line in enumerate(lines):
+            if not line.strip():
+                continue
+            self._pending.append(line)
+            if self._looks_numeric(line):
+                self._numeric_seen += 1
+            if self._numeric_seen >= _DETECT_LINES or len(self._pending) > 200:
+                if self._decide():
+                    return self._decode(b"".join(ln + b"\n" for ln in lines[k + 1:]))
+        return []
 
     @staticmethod
     def _looks_numeric(line: bytes) -> bool:
-        return bool(line) and line[:1] != b"#" and not re.search(rb"[g-zA-DF-Z_]", line.replace(
-            b"nan", b"").replace(b"inf", b"").replace(b"NaN", b"")) or bool(_PAIR.search(line))
+        if len(_PAIR.findall(line)) >= 2:
+            return True
+        cells = [c for c in re.split(rb"[,;\s]+", line.strip()) if c]
+        return len(cells) >= 1 and all(_is_float(c) for c in cells)
 
-    def _decide(self) -> None:
-        """Fix delimiter, header and column roles from the pending lines."""
+    def _decide(self) -> bool:
+        """Fix delimiter, header and column roles from the pending lines; ``False`` (and
+        the pending lines counted as not data) when they hold no data to go by."""
         fmt = self.fmt
-        lines = self._pending
+        lines, self._pending = self._pending, []
+        numeric, self._numeric_seen = self._numeric_seen, 0
         pairs = fmt.pairs
         if pairs is None:
-            pair_lines = sum(1 for ln in lines if len(_PAIR.findall(ln)) >= 2)
-            pairs = pair_lines >= max(1, self._numeric_seen // 2)
-        self._pairs = bool(pairs)
-        names: list[str]
-        if self._pairs:
-            first = next((ln for ln in lines if len(_PAIR.findall(ln)) >= 2), b"")
-            names = [m[0].decode() for m in _PAIR.findall(first)]
+            pairs = sum(len(_PAIR.findall(ln)) >= 2 for ln in lines) >= max(1, numeric // 2)
+        names: list[str] = []
+        headerless = False
+        if pairs:
+            first = next((ln for ln in lines if len(_PAIR.findall(ln)) >= 2), None)
+            if first is not None:
+                names = [m[0].decode() for m in _PAIR.findall(first)]
         else:
-            self._delim = (fmt.delimiter.encode() if fmt.delimiter is not None
-                           else self._detect_delimiter(lines))
-            widths = [len(_split(ln, self._delim)) for ln in lines
-                      if all(_is_float(c) for c in _split(ln, self._delim))]
+            delim = (fmt.delimiter.encode() if fmt.delimiter is not None
+                     else self._detect_delimiter(lines))
+            widths = [len(cells) for ln in lines
+                      if (cells := _split(ln, delim)) and all(_is_float(c) for c in cells)]
             ncol = max(set(widths), key=widths.count) if widths else 0
-            header = None
+            if ncol:
+                self._delim = delim
+                header = self._find_header(lines, delim, ncol)
+                if fmt.names is not None:
+                    names = list(fmt.names)
+                elif header is not None:
+                    names = header
+                else:
+                    names, headerless = [f"col{i + 1}" for i in range(ncol)], True
+        if len(names) < (1 if fmt.time is None else 2):
             for ln in lines:
-                cells = _split(ln, self._delim)
-                if len(cells) == ncol and not any(_is_float(c) for c in cells):
-                    try:
-                        header = [c.decode() for c in cells]
-                        self._header_line = ln
-                    except UnicodeDecodeError:
-                        continue
-            if fmt.names is not None:
-                names = list(fmt.names)
-            elif header is not None:
-                names = header
-            else:
-                names = [f"col{i + 1}" for i in range(ncol)]
+                self._not_data(ln)
+            return False
+        self._pairs = bool(pairs)
         self.columns = names
-        self._roles = self._resolve_roles(names)
-        pending, self._pending = self._pending, []
-        self._replay = pending
+        self._roles = self._resolve_roles(names, headerless)
+        self._replay = lines
+        return True
+
+    def _find_header(self, lines: list[bytes], delim: bytes, ncol: int) -> list[str] | None:
+        """The last line before the first data line whose cells are all names."""
+        header = None
+        for ln in lines:
+            cells = _split(ln, delim)
+            if all(_is_float(c) for c in cells):
+                break
+            if len(cells) == ncol and all(re.fullmatch(rb"[A-Za-z_][\w .\[\]/%-]*", c)
+                                          for c in cells):
+                header, self._header_line = [c.decode() for c in cells], ln.strip()
+        return header
 
     def _detect_delimiter(self, lines: list[bytes]) -> bytes:
         best, best_score = b",", -1
@@ -193,33 +206,44 @@ class TextDecoder:
                 best, best_score = d, score
         return best
 
-    def _resolve_roles(self, names: list[str]) -> tuple[int | None, int, int | None]:
+    def _resolve_roles(self, names: list[str],
+                       headerless: bool) -> tuple[int | None, int, int | None]:
+        """Column indices of time, feedback and setpoint: by name, by 1-based position, or
+        (headerless streams) by the usual order [time,] [setpoint,] feedback."""
         fmt = self.fmt
+        n = len(names)
 
-        def find(name: str | None, role: str, default: int | None) -> int | None:
+        def find(name: str | None, position: int | None) -> int | None:
             if name is None:
                 return None
             if name in names:
                 return names.index(name)
-            if name.isdigit() and 1 <= int(name) <= len(names):
+            if name.isdigit() and 1 <= int(name) <= n:
                 return int(name) - 1
-            if default is not None and default < len(names) and names[default].startswith("col"):
-                return default  # headerless stream: roles by position
+            if headerless and position is not None and position < n:
+                return position
             return None
 
-        ti = find(fmt.time, "time", 0)
+        ti = find(fmt.time, 0)
         if fmt.time is not None and ti is None:
             raise InputError(f"the stream has no time column {fmt.time!r} (columns:"
                              f" {', '.join(names)}); name it, or give the sample rate to stamp"
                              " samples on the host")
-        fi = find(fmt.feedback, "feedback", 2 if len(names) >= 3 else len(names) - 1)
-        si = (find(fmt.setpoint, "setpoint", None) if fmt.setpoint is not None
-              else (names.index("setpoint") if "setpoint" in names
-                    else (1 if len(names) >= 3 and names[1].startswith("col") else None)))
+        k = 0 if ti is None else 1
+        sp_pos, fb_pos = (k, k + 1) if n >= k + 2 else (None, k)
+        fi = find(fmt.feedback, fb_pos)
         if fi is None:
-            fi = len(names) - 1 if names else 0
+            raise InputError(f"the stream has no feedback column {fmt.feedback!r} (columns:"
+                             f" {', '.join(names)})")
+        if fmt.setpoint is not None:
+            si = find(fmt.setpoint, sp_pos)
+            if si is None:
+                raise InputError(f"the stream has no setpoint column {fmt.setpoint!r}")
+        else:
+            si = names.index("setpoint") if "setpoint" in names else (
+                sp_pos if headerless else None)
         used = {i for i in (ti, fi, si) if i is not None}
-        self._extra = [(n, i) for i, n in enumerate(names) if i not in used]
+        self._extra = [(name, i) for i, name in enumerate(names) if i not in used]
         return ti, fi, si
 
     # -- decoding -----------------------------------------------------------------
