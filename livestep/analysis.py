@@ -70,9 +70,9 @@ class StepAnalyzer:
         windows = self.detector.feed(chunk.t, chunk.feedback, chunk.setpoint)
         return [analyze_window(w, self.settings) for w in windows]
 
-    def finish(self) -> list[StepResult]:
-        """Results of the step still open at the end of the stream."""
-        return [analyze_window(w, self.settings) for w in self.detector.finish()]
+    def finish(self, reason: str = "end of data") -> list[StepResult]:
+        """Results of the step still open at the end of the stream (or segment)."""
+        return [analyze_window(w, self.settings) for w in self.detector.finish(reason)]
 
 
 def analyze_chunks(chunks: Iterable[SampleChunk], settings: AnalysisSettings = AnalysisSettings(),

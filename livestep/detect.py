@@ -166,13 +166,13 @@ class StepDetector:
         self._trim()
         return out
 
-    def finish(self) -> list[StepWindow]:
-        """Close the open window at the end of the stream."""
+    def finish(self, reason: str = "end of data") -> list[StepWindow]:
+        """Close the open window at the end of the stream (or segment: ``reason``)."""
         out: list[StepWindow] = []
         if self._open is not None:
             self._check_max_window(out, self._buf.end)
         if self._open is not None:
-            self._close(self._buf.end, "end of data", out)
+            self._close(self._buf.end, reason, out)
         return out
 
     # -- setpoint mode ----------------------------------------------------------

@@ -144,10 +144,10 @@ class Session:
             s.close()
         return out
 
-    def _finish(self) -> list[StepResult]:
+    def _finish(self, reason: str = "end of data") -> list[StepResult]:
         if self._analyzer is None:
             return []
-        done = self._analyzer.finish()
+        done = self._analyzer.finish(reason)
         self._analyzer = None
         return self._publish(done)
 
@@ -155,7 +155,7 @@ class Session:
         out: list[StepResult] = []
         for chunk in chunks:
             if chunk.segment != self._segment:
-                out += self._finish()
+                out += self._finish("device restart")
                 self._segment = chunk.segment
             if self._analyzer is None:
                 self._analyzer = StepAnalyzer(self.settings,

@@ -10,6 +10,7 @@ on replay.
 from __future__ import annotations
 
 import datetime as dt
+import io
 import time
 from collections.abc import Callable
 from pathlib import Path
@@ -49,10 +50,11 @@ class Recorder(Sink):
         start = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
         self._meta = {"start": start, "livestep": __version__}
         self._metadata = metadata  # a callable is asked when the header is written
-        self._fh: IO[str] | None = None
+        self._fh: IO[bytes] | None = None
         self._raw: IO[bytes] | None = self.raw_path.open("wb") if self.raw_path else None
         self._columns: list[str] | None = None
         self._extras: list[str] = []
+        self._fmt: list[str] = []
         self._segment = 0
         self._last_flush = time.monotonic()
 
@@ -63,14 +65,16 @@ class Recorder(Sink):
         assert self._fh is not None and self._columns is not None
         if chunk.segment != self._segment:
             self._segment = chunk.segment
-            self._fh.write(f"# segment: {chunk.segment}\n")
+            self._fh.write(f"# segment: {chunk.segment}\n".encode())
         cols = [chunk.t]
         if "setpoint" in self._columns:
             cols.append(chunk.setpoint if chunk.setpoint is not None
                         else np.full(len(chunk), np.nan))
         cols.append(chunk.feedback)
         cols += [chunk.extras.get(n, np.full(len(chunk), np.nan)) for n in self._extras]
-        np.savetxt(self._fh, np.column_stack(cols), fmt="%.10g", delimiter=",")
+        text = io.StringIO()
+        np.savetxt(text, np.column_stack(cols), fmt=self._fmt, delimiter=",")
+        self._fh.write(text.getvalue().encode())  # whole lines per write: a kill never splits one
         self.rows += len(chunk)
         self.tick()
 
@@ -82,7 +86,7 @@ class Recorder(Sink):
     def note(self, text: str) -> None:
         """A comment line in the recording (state changes, for the reader's eyes)."""
         if self._fh is not None:
-            self._fh.write(f"# {text}\n")
+            self._fh.write(f"# {text}\n".encode())
             self.flush()
 
     def on_bytes(self, data: bytes) -> None:
@@ -119,10 +123,10 @@ class Recorder(Sink):
                  *chunk.extras]
         self._columns = names
         self._extras = list(chunk.extras)
-        self._fh = self.path.open("w", newline="")
+        self._fmt = ["%.12g"] + ["%.10g"] * (len(names) - 1)  # time: 1 us over 10^6 s
+        self._fh = self.path.open("wb")
         extra = self._metadata() if callable(self._metadata) else self._metadata
-        for k, v in {**self._meta, **extra}.items():
-            self._fh.write(f"# {k}: {v}\n")
-        self._fh.write(",".join(names) + "\n")
+        head = "".join(f"# {k}: {v}\n" for k, v in {**self._meta, **extra}.items())
+        self._fh.write((head + ",".join(names) + "\n").encode())
         self._segment = chunk.segment
         self.flush()

@@ -1,0 +1,168 @@
+"""Live sessions end to end through a real pseudo-terminal: record, replay, kill, busy port."""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy import signal as sps
+
+from livestep.recording import RecordingReader
+
+sys.path.insert(0, str(Path(__file__).parent))
+from test_serial_port import Pty  # noqa: E402
+
+ROOT = Path(__file__).resolve().parent.parent
+RATE, ZETA, WN = 2000.0, 0.4, 40.0
+
+
+def device_lines(levels: list[float], hold: float = 0.8, restart_at: int | None = None) -> bytes:
+    """What a controller would print: a boot banner, a header, then 't,setpoint,feedback'
+    lines (time in microseconds), the loop simulated by scipy.signal.lsim. With
+    ``restart_at``, the device reboots there: banner and header again, time from zero."""
+    n = int(hold * RATE)
+    t = np.arange(n * len(levels)) / RATE
+    sp = np.repeat(levels, n).astype(float)
+    sys_ = sps.TransferFunction([WN**2], [1.0, 2 * ZETA * WN, WN**2])
+    _, y, _ = sps.lsim(sys_, sp - sp[0], t)
+    y = sp[0] + y + np.random.default_rng(5).normal(0, 0.002, t.size)
+    us = np.round(t * 1e6).astype(np.int64)
+    out = [b"controller fw 1.4 booting\n", b"t,setpoint,feedback\n"]
+    for k in range(t.size):
+        if k == restart_at:
+            out += [b"controller fw 1.4 booting\n", b"t,setpoint,feedback\n"]
+            us = us - us[k]
+        out.append(b"%d,%.4f,%.5f\n" % (us[k], sp[k], y[k]))
+    return b"".join(out)
+
+
+def start_live(port: str, *args: str) -> subprocess.Popen:
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "livestep", "live", port, "--time-unit", "us", *args],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=ROOT)
+    deadline = time.monotonic() + 20
+    line = ""
+    while time.monotonic() < deadline:  # wait until the port is open and recording
+        line = proc.stderr.readline()
+        if "recording to" in line or not line:
+            break
+    assert "recording to" in line, line + proc.stderr.read()
+    return proc
+
+
+def write_paced(dev: Pty, data: bytes, rate_bytes: float) -> list[tuple[float, int]]:
+    """Write in 2 kB pieces at about ``rate_bytes`` per second; returns (time, bytes so far)."""
+    log, start = [], time.monotonic()
+    for i in range(0, len(data), 2048):
+        dev.write(data[i:i + 2048])
+        log.append((time.monotonic(), i + len(data[i:i + 2048])))
+        due = start + (i + 2048) / rate_bytes - time.monotonic()
+        if due > 0:
+            time.sleep(due)
+    return log
+
+
+def stop(proc: subprocess.Popen) -> tuple[str, str]:
+    proc.send_signal(signal.SIGTERM)
+    out, err = proc.communicate(timeout=30)
+    assert proc.returncode == 0, err
+    return out, err
+
+
+def steps_of(doc_lines: list[dict]) -> list[tuple]:
+    keys = ("t_step", "direction", "rise_time", "overshoot_pct", "settling_time", "settled")
+    return [tuple(s[k] for k in keys) for s in doc_lines]
+
+
+def close_enough(a: list[tuple], b: list[tuple]) -> bool:
+    if len(a) != len(b):
+        return False
+    for x, y in zip(a, b, strict=True):
+        for u, v in zip(x, y, strict=True):
+            if isinstance(u, float) and isinstance(v, float):
+                if abs(u - v) > 1e-6 * max(1.0, abs(u)):
+                    return False
+            elif u != v:
+                return False
+    return True
+
+
+def run_cli(*args: str) -> subprocess.CompletedProcess:
+    return subprocess.run([sys.executable, "-m", "livestep", *args], capture_output=True,
+                          text=True, cwd=ROOT, timeout=120)
+
+
+@pytest.mark.parametrize("restart", [False, True])
+def test_live_record_then_replay_gives_the_same_steps(tmp_path, restart):
+    levels = [0.0, 1.0, -1.0, 0.5, 2.0]
+    data = device_lines(levels, restart_at=int(2.2 * 0.8 * RATE) if restart else None)
+    dev = Pty()
+    rec = tmp_path / "session.csv"
+    try:
+        proc = start_live(dev.path, "--record", str(rec), "--json-lines")
+        write_paced(dev, data, rate_bytes=400_000)
+        time.sleep(1.0)
+        out, err = stop(proc)
+    finally:
+        dev.close()
+    live = [json.loads(line) for line in out.splitlines() if line.startswith("{")]
+    assert len(live) == len(levels) - 1, err
+    # The restart (inside the third hold) cuts the second step's window short.
+    assert [s["window_end"] for s in live].count("device restart") == (1 if restart else 0)
+    replay = run_cli("replay", str(rec), "--fast", "--json")
+    assert replay.returncode == 0, replay.stderr
+    assert close_enough(steps_of(json.loads(replay.stdout)["steps"]), steps_of(live))
+    if not restart:  # offline analysis reads the recording the same way
+        offline = run_cli("analyze", str(rec), "--json")
+        assert offline.returncode == 0, offline.stderr
+        assert close_enough(steps_of(json.loads(offline.stdout)["steps"]), steps_of(live))
+    text = rec.read_text()
+    assert "# source: " + dev.path in text and "# livestep: " in text and "# start: " in text
+    assert ("# segment: 1" in text) == restart
+
+
+def test_sigkill_loses_at_most_the_last_second(tmp_path):
+    data = device_lines([0.0, 1.0, 0.0, 1.0, 0.0, 1.0], hold=1.0)
+    dev = Pty()
+    rec = tmp_path / "killed.csv"
+    try:
+        proc = start_live(dev.path, "--record", str(rec))
+        log = write_paced(dev, data[: len(data) * 3 // 4], rate_bytes=100_000)
+        time.sleep(0.3)
+        killed_at = time.monotonic()
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait(timeout=10)
+    finally:
+        dev.close()
+    sent_before = max(n for t, n in log if t <= killed_at - 1.0)
+    lines_before = data[:sent_before].count(b"\n") - 2  # banner and header are not samples
+    reader = RecordingReader(rec)
+    rows = sum(len(c) for c in reader)
+    assert rows >= lines_before - 1  # a line still in the pty when the 1 s window began
+    result = run_cli("analyze", str(rec), "--json")
+    assert result.returncode == 0, result.stderr
+
+
+def test_second_session_on_a_busy_port_fails_cleanly(tmp_path):
+    dev = Pty()
+    try:
+        first = start_live(dev.path, "--record", str(tmp_path / "a.csv"))
+        second = run_cli("live", dev.path, "--record", str(tmp_path / "b.csv"))
+        stop(first)
+    finally:
+        dev.close()
+    assert second.returncode == 2
+    assert "port busy" in second.stderr and second.stderr.count("\n") == 1
+    assert not (tmp_path / "b.csv").exists()
+
+
+def test_missing_port_exit_status():
+    result = run_cli("live", "/dev/ttyLIVESTEP_NONE")
+    assert result.returncode == 2 and "no such port" in result.stderr
