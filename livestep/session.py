@@ -131,7 +131,7 @@ class Session:
 
     def tick(self) -> None:
         for s in self.sinks:
-            s.on_tick()
+            s.on_tick(self.counters)
 
     def close(self) -> list[StepResult]:
         """Flush the decoder, close the open step and the sinks."""
@@ -141,7 +141,7 @@ class Session:
         out = self._chunks(self.decoder.flush())
         out += self._finish()
         for s in self.sinks:
-            s.close()
+            s.close(self.counters)
         return out
 
     def _finish(self, reason: str = "end of data") -> list[StepResult]:

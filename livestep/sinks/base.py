@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from livestep.analysis import StepResult
+from livestep.decode.counters import LinkCounters
 from livestep.samples import SampleChunk
 
 __all__ = ["Sink"]
@@ -23,8 +24,9 @@ class Sink:
     def on_state(self, state: str) -> None:
         """Link state: connected, disconnected, ..."""
 
-    def on_tick(self) -> None:
-        """Called now and then, with or without data (periodic flushing)."""
+    def on_tick(self, counters: LinkCounters) -> None:
+        """Called now and then, with or without data, with the link's counters (periodic
+        flushing and status displays)."""
 
-    def close(self) -> None:
-        """End of the session."""
+    def close(self, counters: LinkCounters) -> None:
+        """End of the session, with the final counters."""

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import datetime as dt
 import io
+import json
 import time
 from collections.abc import Callable
 from pathlib import Path
@@ -19,6 +20,7 @@ from typing import IO
 import numpy as np
 
 from livestep import __version__
+from livestep.decode.counters import LinkCounters
 from livestep.samples import SampleChunk
 from livestep.sinks.base import Sink
 
@@ -98,7 +100,7 @@ class Recorder(Sink):
     def on_state(self, state: str) -> None:
         self.note(f"state: {state}")
 
-    def on_tick(self) -> None:
+    def on_tick(self, counters: LinkCounters) -> None:
         self.tick()
 
     def tick(self) -> None:
@@ -112,7 +114,9 @@ class Recorder(Sink):
                 fh.flush()
         self._last_flush = time.monotonic()
 
-    def close(self) -> None:
+    def close(self, counters: LinkCounters | None = None) -> None:
+        if counters is not None and self._fh is not None:
+            self.note("counters: " + json.dumps(counters.snapshot()))
         for fh in (self._fh, self._raw):
             if fh is not None:
                 fh.close()

@@ -16,6 +16,7 @@ import errno
 import os
 import queue
 import threading
+import time
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -108,6 +109,7 @@ class SerialReader:
         self.max_backoff = max_backoff
         self.dropped_bytes = 0
         self.reconnects = 0
+        self.cpu_time = 0.0  # CPU seconds the reader thread has used
         self.state = "closed"
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
@@ -171,6 +173,7 @@ class SerialReader:
                 continue
             if data:
                 self._put("data", data)
+            self.cpu_time = time.thread_time()
         self._close_port()
 
     def _close_port(self) -> None:
