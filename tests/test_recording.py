@@ -97,3 +97,20 @@ def test_long_file_reads_in_bounded_blocks(write_file):
     chunks = list(RecordingReader(write_file("long.csv", text)))
     assert len(chunks) > 1  # read in several blocks, not at once
     assert np.allclose(np.concatenate([c.t for c in chunks]), t)
+
+
+def test_block_of_repeated_timestamps_only(write_file):
+    text = "t,setpoint,feedback\n0.001,0,0\n0.002,0,0\n0.002,0,0"  # no final newline
+    reader, chunks = read_all(write_file("a.csv", text))
+    assert sum(len(c) for c in chunks) == 2 and reader.stats.repeated_time == 1
+
+
+def test_rows_of_wrong_length_are_skipped_not_shifted(write_file):
+    rows = [f"{k * 0.001:.3f},0,{k}" for k in range(40)]
+    rows[10] = "0.010,0,10,99"  # one field too many ...
+    rows[11] = "0.011,0"  # ... and one too few: the comma count of the block still matches
+    reader, chunks = read_all(write_file("a.csv", "t,setpoint,feedback\n" + "\n".join(rows)
+                                         + "\n"))
+    assert reader.stats.bad == 2 and reader.stats.first_bad_line == 12
+    fb = np.concatenate([c.feedback for c in chunks])
+    assert np.array_equal(fb, [k for k in range(40) if k not in (10, 11)])

@@ -1,0 +1,339 @@
+"""Benchmark ``livestep analyze`` end to end against a plain numpy + python-control baseline.
+
+Usage: python tools/bench_analyze.py [--hours H] [--rate HZ] [--quick] [--out PATH] [--keep]
+                                     [--no-cli] [--profile N]
+
+Writes an invented bench recording (a belt-driven positioning axis stepped up and down
+every 2 s with changing gains: damping ratio and natural frequency vary, with sensor
+noise, encoder quantisation and timestamp jitter), then runs each side in its own
+subprocess so that wall time and peak memory (the child's maximum resident set) are
+its own:
+
+- livestep: ``RecordingReader`` -> ``analyze_chunks`` with model fits, as
+  ``livestep analyze`` does (read, detect, measure, fit);
+- livestep CLI: ``python -m livestep analyze --json FILE`` as a whole process
+  (interpreter start, imports and JSON output included);
+- baseline: ``numpy.loadtxt`` of the whole file, ``numpy.diff`` of the setpoint for
+  the jumps, ``control.step_info`` on each segment (no noise handling, no model).
+
+It is a report: nothing is asserted. Needs python-control for the baseline.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT))
+from livestep.second_order import step_response  # noqa: E402
+
+HOLD = 2.0  # seconds between steps
+TARGET_RATE = 1e6  # samples/s
+TARGET_MB = 500.0
+META = {"source": "invented bench session: belt-driven positioning axis, position loop,"
+        " gains retuned between steps", "units": "t s, setpoint mm, feedback mm",
+        "generator": "tools/bench_analyze.py"}
+
+
+# -- recording ------------------------------------------------------------------------
+def _fixed_point(scaled: np.ndarray, decimals: int) -> np.ndarray:
+    """ASCII of integers ``scaled`` = value * 10**decimals as an (n, width) byte matrix,
+    right-aligned and padded on the left with spaces (which the caller drops)."""
+    mag = np.abs(scaled)
+    top = int(mag.max()) // 10**decimals if mag.size else 0
+    n_int = max(1, len(str(top)))
+    width = 1 + n_int + (1 + decimals if decimals else 0)
+    out = np.full((scaled.size, width), ord(" "), dtype=np.uint8)
+    col = width - 1
+    for k in range(decimals):
+        out[:, col] = ord("0") + (mag // 10**k) % 10
+        col -= 1
+    if decimals:
+        out[:, col] = ord(".")
+        col -= 1
+    shown = np.ones(scaled.size, dtype=np.intp)  # integer digits written per row
+    for k in range(n_int):
+        p = 10 ** (decimals + k)
+        digit = (ord("0") + (mag // p) % 10).astype(np.uint8)
+        if k == 0:
+            out[:, col] = digit
+        else:
+            show = mag >= p
+            out[:, col] = np.where(show, digit, ord(" "))
+            shown += show
+        col -= 1
+    neg = np.flatnonzero(scaled < 0)
+    out[neg, width - (2 + decimals if decimals else 1) - shown[neg]] = ord("-")
+    return out
+
+
+def _csv_bytes(t_us: np.ndarray, sp_mu: np.ndarray, fb_mu: np.ndarray) -> bytes:
+    """Rows ``t,setpoint,feedback`` as ``%.6f,%.3f,%.3f`` from integer micro-seconds and
+    micro-metres (thousandths of a mm)."""
+    n = t_us.size
+    comma = np.full((n, 1), ord(","), dtype=np.uint8)
+    newline = np.full((n, 1), ord("\n"), dtype=np.uint8)
+    rows = np.hstack((_fixed_point(t_us, 6), comma, _fixed_point(sp_mu, 3), comma,
+                      _fixed_point(fb_mu, 3), newline)).ravel()
+    return rows[rows != ord(" ")].tobytes()
+
+
+def _plan(n_steps: int, rng: np.random.Generator) -> tuple[np.ndarray, ...]:
+    """Setpoint levels (mm), damping ratios and natural frequencies (rad/s) of each step:
+    up and down, small and large, on a 0..400 mm stroke."""
+    levels = np.empty(n_steps)
+    level = 100.0
+    sizes = np.exp(rng.uniform(np.log(0.5), np.log(150.0), n_steps))
+    signs = rng.choice([-1.0, 1.0], n_steps)
+    for j in range(n_steps):
+        nxt = level + signs[j] * sizes[j]
+        if not 0.0 <= nxt <= 400.0:
+            nxt = level - signs[j] * sizes[j]
+        level = round(nxt, 1)
+        levels[j] = level
+    zetas = rng.uniform(0.3, 1.5, n_steps)
+    wns = rng.uniform(15.0, 40.0, n_steps)
+    return levels, zetas, wns
+
+
+def write_recording(path: Path, hours: float, rate: float, seed: int = 7) -> int:
+    """Write the invented recording; returns the number of samples."""
+    rng = np.random.default_rng(seed)
+    n_per = int(round(HOLD * rate))
+    n_segments = max(2, int(round(hours * 3600.0 / HOLD)))
+    levels, zetas, wns = _plan(n_segments - 1, rng)
+    start = 100.0
+    levels = np.concatenate(([start], levels))
+    dead_time, noise, quantum, jitter = 0.004, 0.02, 0.01, 0.1
+    ts = np.arange(n_per) / rate  # time since the step, before jitter
+    per_block = max(1, 500_000 // n_per)  # segments formatted at a time
+    with path.open("wb") as fh:
+        fh.write("".join(f"# {k}: {v}\n" for k, v in META.items()).encode())
+        fh.write(b"t,setpoint,feedback\n")
+        for s0 in range(0, n_segments, per_block):
+            segs = range(s0, min(s0 + per_block, n_segments))
+            k = np.arange(segs.start * n_per, segs.stop * n_per)
+            t = (k + rng.uniform(-jitter, jitter, k.size)) / rate
+            t[0] = max(t[0], 0.0)
+            sp = np.repeat(levels[segs.start:segs.stop], n_per)
+            fb = np.empty(k.size)
+            for i, j in enumerate(segs):
+                seg = slice(i * n_per, (i + 1) * n_per)
+                if j == 0:
+                    fb[seg] = start
+                    continue
+                prev = levels[j - 1]
+                fb[seg] = prev + (levels[j] - prev) * step_response(
+                    ts - dead_time, zetas[j - 1], wns[j - 1])
+            fb += rng.normal(0.0, noise, k.size)
+            fb_mu = np.rint(fb / quantum).astype(np.int64) * round(quantum * 1000)
+            fh.write(_csv_bytes(np.rint(t * 1e6).astype(np.int64),
+                                np.rint(sp * 1000).astype(np.int64), fb_mu))
+    return n_segments * n_per
+
+
+# -- the two sides (run in child processes) -----------------------------------------------
+def run_livestep(path: str) -> dict[str, float]:
+    """Read, detect, measure and fit, the way ``livestep analyze`` does with its defaults."""
+    from livestep.analysis import AnalysisSettings, analyze_chunks
+    from livestep.detect import DetectorSettings
+    from livestep.measure import MeasureSettings
+    from livestep.recording import ColumnMap, RecordingReader
+
+    t0 = time.perf_counter()
+    settings = AnalysisSettings(
+        detect=DetectorSettings(min_step=None, max_window=120.0),
+        measure=MeasureSettings(rise_levels=(10.0, 90.0), settling_band=2.0), fit_model=True)
+    reader = RecordingReader(path, ColumnMap(time="t", setpoint=None, feedback="feedback",
+                                             time_unit="s"))
+    results = list(analyze_chunks(reader, settings, has_setpoint=reader.has_setpoint))
+    seconds = time.perf_counter() - t0
+    return {"seconds": seconds, "samples": reader.stats.good, "steps": len(results),
+            "fitted": sum(r.model is not None for r in results)}
+
+
+def run_baseline(path: str) -> dict[str, float]:
+    """Whole file into memory, setpoint jumps by numpy.diff, control.step_info per segment."""
+    import control
+
+    t0 = time.perf_counter()
+    skip = 0
+    with open(path, "rb") as fh:
+        for line in fh:
+            skip += 1
+            if not line.startswith(b"#"):
+                break  # the header row
+    data = np.loadtxt(path, delimiter=",", skiprows=skip)
+    t, sp, fb = data[:, 0], data[:, 1], data[:, 2]
+    jumps = np.flatnonzero(np.diff(sp) != 0.0) + 1
+    ends = np.append(jumps[1:], sp.size)
+    infos = []
+    for a, b in zip(jumps, ends, strict=True):
+        before, after = sp[a - 1], sp[a]
+        infos.append(control.step_info(fb[a:b] - before, timepts=t[a:b] - t[a],
+                                       final_output=after - before))
+    seconds = time.perf_counter() - t0
+    return {"seconds": seconds, "samples": int(sp.size), "steps": len(infos)}
+
+
+def _child(side: str, path: str) -> None:
+    result = run_livestep(path) if side == "livestep" else run_baseline(path)
+    json.dump(result, sys.stdout)
+
+
+def _profile(path: str, top: int) -> None:
+    import cProfile
+    import pstats
+
+    prof = cProfile.Profile()
+    prof.enable()
+    result = run_livestep(path)
+    prof.disable()
+    print(f"livestep under cProfile: {result['samples']} samples, {result['steps']} steps,"
+          f" {result['seconds']:.2f} s")
+    stats = pstats.Stats(prof, stream=sys.stdout)
+    stats.sort_stats("tottime").print_stats(top)
+    stats.sort_stats("cumulative").print_stats(top)
+
+
+# -- parent ---------------------------------------------------------------------------------
+# A minimal timer process between this one and each measured command: a child's peak
+# resident memory (ru_maxrss) starts from its parent's at the spawn, so the parent, which
+# held the generator's arrays, must not be the one that spawns it.
+_TIMER = """
+import os, sys, time
+t0 = time.perf_counter()
+pid = os.posix_spawn(sys.argv[2], sys.argv[2:], os.environ)
+_, status, usage = os.wait4(pid, 0)
+with open(sys.argv[1], "w") as fh:
+    fh.write(f"{time.perf_counter() - t0} {usage.ru_maxrss} {os.waitstatus_to_exitcode(status)}")
+"""
+
+
+def _measure(cmd: list[str], scratch: Path) -> tuple[float, float, str]:
+    """Run ``cmd``; its wall seconds, its peak resident memory (MB) and its stdout."""
+    report = scratch / "timer.txt"
+    out = subprocess.run([sys.executable, "-S", "-c", _TIMER, str(report), *cmd],
+                         stdout=subprocess.PIPE, check=True).stdout.decode()
+    wall, max_rss_kib, status = report.read_text().split()
+    if int(status) != 0:
+        raise SystemExit(f"bench: {' '.join(cmd)} exited with status {status}")
+    return float(wall), int(max_rss_kib) * 1024 / 1e6, out
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--hours", type=float, default=1.0, help="recording length (default 1)")
+    ap.add_argument("--rate", type=float, default=5000.0, help="sample rate, Hz (default 5000)")
+    ap.add_argument("--quick", action="store_true", help="a 0.05 h smoke run")
+    ap.add_argument("--out", type=Path, help="write the recording here (default: a temp dir)")
+    ap.add_argument("--keep", action="store_true", help="keep the recording afterwards")
+    ap.add_argument("--no-cli", action="store_true", help="skip timing the livestep command")
+    ap.add_argument("--repeat", type=int, default=1, metavar="N",
+                    help="run each side N times, interleaved; report the fastest (default 1)")
+    ap.add_argument("--profile", type=int, metavar="N",
+                    help="instead of the comparison, profile the livestep side (top N)")
+    ap.add_argument("--side", choices=("livestep", "baseline"), help=argparse.SUPPRESS)
+    ap.add_argument("recording", nargs="?", help=argparse.SUPPRESS)
+    args = ap.parse_args()
+    if args.side:
+        _child(args.side, args.recording)
+        return
+
+    from rich.console import Console
+    from rich.table import Table
+
+    console = Console()
+    hours = 0.05 if args.quick else args.hours
+    scratch = Path(tempfile.mkdtemp(prefix="livestep-bench-"))
+    path = args.out if args.out is not None else scratch / "bench.csv"
+    try:
+        t0 = time.perf_counter()
+        n = write_recording(path, hours, args.rate)
+        gen = time.perf_counter() - t0
+        size = path.stat().st_size / 1e6
+        console.print(f"recording: {path} ({hours:g} h at {args.rate:g} Hz, {n:,} samples,"
+                      f" {size:.0f} MB) written in {gen:.1f} s")
+        if args.profile:
+            _profile(str(path), args.profile)
+            return
+        os.sync()  # the new file's dirty pages written back before anything is timed
+        me = [sys.executable, str(Path(__file__).resolve())]
+        sides = [("livestep", me + ["--side", "livestep", str(path)]),
+                 ("livestep CLI", [sys.executable, "-m", "livestep", "analyze", "--json",
+                                   str(path)]),
+                 ("baseline", me + ["--side", "baseline", str(path)])]
+        if args.no_cli:
+            del sides[1]
+        best: dict[str, tuple] = {}
+        for _ in range(args.repeat):  # sides interleaved; the fastest run of each kept
+            for label, cmd in sides:
+                wall, peak, out = _measure(cmd, scratch)
+                res = json.loads(out)
+                if label == "livestep CLI":
+                    row = (label, wall, res["samples"], len(res["steps"]), peak,
+                           sum(s["model"] is not None for s in res["steps"]))
+                else:
+                    row = (label, res["seconds"], res["samples"], res["steps"], peak,
+                           res.get("fitted"))
+                old = best.get(label)
+                if old is not None:  # the faster run's figures, the larger peak
+                    faster = row if row[1] < old[1] else old
+                    row = (*faster[:4], max(row[4], old[4]), faster[5])
+                best[label] = row
+        rows = [best[label] for label, _ in sides]
+    finally:
+        if args.keep:
+            console.print(f"kept {path}")
+        elif args.out is not None:
+            path.unlink(missing_ok=True)
+        if args.keep and args.out is None:
+            (scratch / "timer.txt").unlink(missing_ok=True)
+        else:
+            shutil.rmtree(scratch, ignore_errors=True)
+
+    base = next(r for r in rows if r[0] == "baseline")
+    base_rate = base[2] / base[1]
+    runs = f", fastest of {args.repeat} runs each" if args.repeat > 1 else ""
+    table = Table(title=f"{n:,} samples, {hours:g} h at {args.rate:g} Hz{runs}")
+    for col in ("side", "seconds", "samples/s", "steps", "fitted", "peak MB",
+                "throughput vs baseline"):
+        table.add_column(col, justify="left" if col == "side" else "right")
+    for label, sec, samples, steps, peak, fitted in rows:
+        rate = samples / sec
+        table.add_row(label, f"{sec:.2f}", f"{rate / 1e6:.2f} M", f"{steps}",
+                      "-" if fitted is None else f"{fitted}", f"{peak:.0f}",
+                      f"{rate / base_rate:.2f}x")
+    console.print(table)
+    console.print("seconds: read + detect + measure (+ fit) inside the child, imports"
+                  " excluded; the 'livestep CLI' row is 'python -m livestep analyze --json"
+                  " FILE' as a whole process (start-up, imports, JSON output). peak MB: each"
+                  " child's maximum resident set (10^6 bytes), the largest over the runs.")
+    live = rows[0]
+    live_rate = live[2] / live[1]
+    checks = [(f">= {TARGET_RATE / 1e6:g} M samples/s with model fits", live_rate >= TARGET_RATE,
+               f"{live_rate / 1e6:.2f} M"),
+              ("faster than the baseline", live_rate > base_rate,
+               f"{live_rate / base_rate:.2f}x"),
+              (f"peak memory < {TARGET_MB:g} MB", live[4] < TARGET_MB, f"{live[4]:.0f} MB")]
+    if not args.no_cli:
+        cli = rows[1]  # the command, as a whole process
+        checks.append((f"command peak memory < {TARGET_MB:g} MB", cli[4] < TARGET_MB,
+                       f"{cli[4]:.0f} MB"))
+    for what, ok, value in checks:
+        mark = "[green]met[/]" if ok else "[red]not met[/]"
+        console.print(f"target {what}: {mark} ({value})")
+
+
+if __name__ == "__main__":
+    main()
