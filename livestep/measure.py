@@ -46,7 +46,6 @@ from numpy.typing import NDArray
 from scipy.integrate import trapezoid
 from scipy.ndimage import uniform_filter1d
 from scipy.signal import oaconvolve, savgol_coeffs
-from scipy.stats import trim_mean
 
 __all__ = ["MeasureSettings", "StepMetrics", "measure_step", "noise_sigma", "robust_level"]
 
@@ -105,8 +104,14 @@ class StepMetrics:
 
 
 def robust_level(x: FloatArray) -> float:
-    """Robust level of a stretch of samples: the 10 % trimmed mean (same units as ``x``)."""
-    return float(trim_mean(x, 0.1))
+    """Robust level of a stretch of samples: the 10 % trimmed mean (same units as ``x``),
+    the mean of what is left after cutting the lowest and highest 10 % of the samples."""
+    n = x.size
+    cut = int(0.1 * n)
+    if cut == 0:
+        return float(np.mean(x))
+    part = np.partition(x, (cut, n - cut - 1))
+    return float(np.mean(part[cut:n - cut]))
 
 
 def noise_sigma(x: FloatArray) -> float:
@@ -230,7 +235,8 @@ def measure_step(
             sel = y[-max(10, (y.size - i_step) // 5):]
         return robust_level(sel)
 
-    final = tail_final(t_step + 0.8 * span)
+    tail_from = t_step + 0.8 * span
+    final = tail_final(tail_from)
     amp = final - initial
     band = settings.settling_band / 100.0
     window = 1
@@ -252,7 +258,8 @@ def measure_step(
         settle_t, _ = _settling(tg, (ys - initial) / amp, g0, band)
         if settle_t is None:
             break
-        new_final = tail_final(max(t_step + 0.8 * span, 0.5 * (settle_t + post_t[-1])))
+        tail_from = max(t_step + 0.8 * span, 0.5 * (settle_t + post_t[-1]))
+        new_final = tail_final(tail_from)
         if new_final == final:
             break
         final = new_final
@@ -297,8 +304,17 @@ def measure_step(
     settled = False
     settling_time = None
     if settle_t is not None:
-        hold = max(10.0 * dt, 0.05 * span)
-        if tg[-1] - settle_t >= hold:
+        # In the band for at least one rise time (common practice, no source), 10 samples
+        # and 5 % of the window, ...
+        hold = max(10.0 * dt, 0.05 * span, rise or 0.0)
+        # ... and the tail that gives the final level not still moving (a straight line
+        # fitted to it drifts by less than the band's half-width over the tail).
+        sel = post_t >= tail_from
+        drift = 0.0
+        if np.count_nonzero(sel) >= 10:
+            tt = post_t[sel] - post_t[sel][0]
+            drift = abs(float(np.polyfit(tt, y[i_step:][sel], 1)[0])) * float(tt[-1])
+        if tg[-1] - settle_t >= hold and drift <= band * abs(amp):
             settled, settling_time = True, settle_t - t_step
     if not settled:
         warnings.append("the window ended before the response settled inside the band")

@@ -28,6 +28,7 @@ __all__ = ["ClosedFormEstimate", "ModelFit", "closed_form_estimate", "fit_second
 
 FloatArray = NDArray[np.float64]
 _MAX_BINS = 200
+_CHI2_1DOF_95 = 3.841  # scipy.stats.chi2.ppf(0.95, 1)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -69,12 +70,23 @@ def closed_form_estimate(m: StepMetrics, band_pct: float = 2.0) -> ClosedFormEst
                               settling_time=so.settling_time_estimate(zeta, wn, band_pct))
 
 
-def _bin_means(t: FloatArray, y: FloatArray, n_bins: int) -> tuple[FloatArray, FloatArray]:
-    if t.size <= n_bins:
-        return t, y
-    edges = np.linspace(0, t.size, n_bins + 1).astype(np.intp)[:-1]
-    counts = np.diff(np.append(edges, t.size))
-    return np.add.reduceat(t, edges) / counts, np.add.reduceat(y, edges) / counts
+def _bin_means(t: FloatArray, y: FloatArray, edges_t: FloatArray
+               ) -> tuple[FloatArray, FloatArray, FloatArray]:
+    """Means of t and y in the time bins ``edges_t`` (empty bins dropped) and the
+    sample counts, for weighting."""
+    edges = np.unique(np.searchsorted(t, edges_t))
+    edges = edges[edges < t.size]
+    counts = np.diff(np.append(edges, t.size)).astype(float)
+    return (np.add.reduceat(t, edges) / counts, np.add.reduceat(y, edges) / counts, counts)
+
+
+def _bin_edges(pre: float, span: float, finest: float) -> FloatArray:
+    """Time bin edges, seconds from the step: 20 even bins before it, then bins that
+    widen geometrically from ``finest`` so the start of the response keeps its shape."""
+    before = np.linspace(-pre, 0.0, 21)[:-1] if pre > 0 else np.empty(0)
+    finest = min(max(finest, 1e-12), span / 10)
+    after = np.geomspace(finest, span, _MAX_BINS - 20)
+    return np.concatenate((before, [0.0], after))
 
 
 def _model_crossing(zeta: float, level: float) -> float:
@@ -130,7 +142,10 @@ def fit_second_order(
     ts, yn = t[sel] - m.t_step, (y[sel] - m.initial) / m.amplitude
     if ts.size < 8:
         return None
-    tb, yb = _bin_means(ts, yn, _MAX_BINS)
+    dt = float(np.median(np.diff(ts)))
+    finest = max(dt, min(m.delay_time, m.rise_time) / 40.0)
+    tb, yb, counts = _bin_means(ts, yn, _bin_edges(pre, span, finest))
+    weight = np.sqrt(counts)  # a bin mean of n samples has 1/n of a sample's variance
 
     zeta0, wn0, theta0 = _initial_guess(m)
 
@@ -138,15 +153,44 @@ def fit_second_order(
         c0, g, log_zeta, log_wn, theta = p
         return c0 + g * so.step_response(tt - theta, math.exp(log_zeta), math.exp(log_wn)) - yy
 
+    def weighted(p: FloatArray, tt: FloatArray, yy: FloatArray) -> FloatArray:
+        return weight * residual(p, tt, yy)
+
+    def jacobian(p: FloatArray, tt: FloatArray, yy: FloatArray) -> FloatArray:
+        # s(tau; zeta, wn) = S(wn tau; zeta): ds/dlog(wn) = tau h, ds/dtheta = -h; the
+        # zeta column by a forward difference.
+        c0, g, log_zeta, log_wn, theta = p
+        zeta, wn = math.exp(log_zeta), math.exp(log_wn)
+        tau = tt - theta
+        s, h = so.step_and_impulse(tau, zeta, wn)
+        dz = 1e-6
+        s_dz = so.step_response(tau, math.exp(log_zeta + dz), wn)
+        return weight[:, None] * np.column_stack((np.ones_like(tt), s, g * (s_dz - s) / dz,
+                                                  g * np.maximum(tau, 0.0) * h, -g * h))
+
     x0 = np.array([0.0, 1.0, math.log(zeta0), math.log(wn0), min(theta0, 0.4 * span)])
     lower = [-0.5, 0.5, math.log(0.005), math.log(wn0) - 3.0, 0.0]
     upper = [0.5, 1.5, math.log(50.0), math.log(wn0) + 3.0, 0.5 * span]
-    best = least_squares(residual, np.clip(x0, lower, upper), bounds=(lower, upper),
+    best = least_squares(weighted, np.clip(x0, lower, upper), jac=jacobian, bounds=(lower, upper),
                          args=(tb, yb), x_scale=[0.1, 0.1, 0.5, 0.5, 1.0 / wn0], method="trf")
+    res = residual(best.x, ts, yn)
+    if best.x[4] > 0.0:
+        # Keep the dead time only if the data need it: refit without one and compare by a
+        # likelihood-ratio test (Wilks: 2 x the cost difference over the noise variance is
+        # chi-square with one degree of freedom; 95 % level, 3.84).
+        no_delay = least_squares(
+            lambda q, tt, yy: weighted(np.append(q, 0.0), tt, yy), best.x[:4],
+            jac=lambda q, tt, yy: jacobian(np.append(q, 0.0), tt, yy)[:, :4],
+            bounds=(lower[:4], upper[:4]), args=(tb, yb), x_scale=[0.1, 0.1, 0.5, 0.5],
+            method="trf")
+        # Residual variance, floored at (0.01 % of the amplitude)^2 so that exact data do
+        # not make a numerical crumb of improvement look significant.
+        noise_var = max(float(np.mean(res**2)), 1e-8)
+        if 2.0 * (no_delay.cost - best.cost) / noise_var < _CHI2_1DOF_95:
+            best.x = np.append(no_delay.x, 0.0)
+            res = residual(best.x, ts, yn)
     c0, g, log_zeta, log_wn, theta = best.x
     zeta, wn = math.exp(log_zeta), math.exp(log_wn)
-
-    res = residual(best.x, ts, yn)
     ss_tot = float(np.sum((yn - yn.mean()) ** 2))
     r2 = 1.0 - float(np.sum(res**2)) / ss_tot if ss_tot > 0 else 0.0
     amplitude = g * m.amplitude

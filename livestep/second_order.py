@@ -21,6 +21,7 @@ __all__ = [
     "phase_margin_deg",
     "settling_time_envelope",
     "settling_time_estimate",
+    "step_and_impulse",
     "step_response",
     "zeta_from_overshoot",
 ]
@@ -34,23 +35,35 @@ def step_response(t: ArrayLike, zeta: float, wn: float) -> NDArray[np.float64]:
     critically damped limit 1 - (1 + wn t) exp(-wn t) falls out of both
     (Ogata, ch. 5, the three damping cases).
     """
+    return step_and_impulse(t, zeta, wn)[0]
+
+
+def step_and_impulse(t: ArrayLike, zeta: float,
+                     wn: float) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Unit-step response s(t) and its time derivative, the impulse response h(t) (1/s).
+
+    With x = wn sqrt(|1 - zeta^2|) t and decay = exp(-zeta wn t):
+    s = 1 - decay (cos x + zeta wn t sin(x)/x) and h = wn^2 t decay sin(x)/x when
+    underdamped; cosh and sinh in place of cos and sin when over-damped.
+    """
     t = np.maximum(np.asarray(t, dtype=float), 0.0)
     sigma_t = zeta * wn * t
     if zeta < 1.0:
         x = wn * math.sqrt(1.0 - zeta * zeta) * t
         decay = np.exp(-sigma_t)
-        # (zeta / beta) sin(x) == zeta wn t * sin(x)/x ; np.sinc(u) = sin(pi u)/(pi u)
-        return 1.0 - decay * (np.cos(x) + zeta * wn * t * np.sinc(x / math.pi))
-    beta_wn = wn * math.sqrt(zeta * zeta - 1.0)
-    x = beta_wn * t
-    e_slow = np.exp(x - sigma_t)
+        safe_x = np.where(x == 0.0, 1.0, x)
+        sin_over_x = np.where(x == 0.0, 1.0, np.sin(x) / safe_x)
+        s = 1.0 - decay * (np.cos(x) + sigma_t * sin_over_x)
+        return s, wn * wn * t * decay * sin_over_x
+    x = wn * math.sqrt(zeta * zeta - 1.0) * t
+    e_slow = np.exp(x - sigma_t)  # exp(-sigma t) cosh, sinh without overflow
     e_fast = np.exp(-x - sigma_t)
-    cosh_term = 0.5 * (e_slow + e_fast)
     small = x < 1e-4
     safe_x = np.where(small, 1.0, x)
     sinh_over_x = np.where(small, np.exp(-sigma_t) * (1.0 + x * x / 6.0),
                            (e_slow - e_fast) / (2.0 * safe_x))
-    return 1.0 - cosh_term - zeta * wn * t * sinh_over_x
+    s = 1.0 - 0.5 * (e_slow + e_fast) - sigma_t * sinh_over_x
+    return s, wn * wn * t * sinh_over_x
 
 
 def overshoot_pct(zeta: float) -> float:
