@@ -22,6 +22,7 @@ from livestep.decode.counters import LinkCounters
 __all__ = ["ClockSettings", "Stamped", "Timebase", "UNIT_SECONDS"]
 
 UNIT_SECONDS = {"s": 1.0, "ms": 1e-3, "us": 1e-6}
+_PERIOD_INTERVALS = 64
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -84,6 +85,7 @@ class Timebase:
         self._origin_t = 0.0  # seconds at the segment's first sample
         self._last_t: float | None = None
         self._period: float | None = None  # median sample period, seconds
+        self._early = np.empty(0)  # intervals seen before the period is fixed
         self.segment = 0
 
     @property
@@ -112,7 +114,8 @@ class Timebase:
         if self._last_raw is None:
             self._origin_raw = raw[0]
             self._origin_t = 0.0
-        period_raw = (self._period / self._scale) if self._period else None
+        known = self._provisional_period()
+        period_raw = known / self._scale if known else None
         if period_raw is None:
             pos = d[d > 0]
             period_raw = float(np.median(pos)) if pos.size else None
@@ -137,7 +140,7 @@ class Timebase:
             if k > 0:  # a restart: continue one period after the last sample
                 offsets[a:b] -= offsets[a]
                 origin_raw = raw[a]
-                step = self._period or (period_raw or 1.0) * self._scale
+                step = (period_raw or 1.0) * self._scale
                 origin_t = float(t[a - 1] if a > 0 else self._last_t or 0.0) + step
                 self.segment += 1
                 self.counters.restarts += 1
@@ -156,6 +159,9 @@ class Timebase:
         return Stamped(t, keep, starts)
 
     def _update_period(self, t: NDArray[np.float64], starts: list[int]) -> None:
+        """The median period is fixed by the stream's first 64 sample intervals (so it does
+        not depend on how the stream was split into reads); every interval over 1.5 times
+        it counts as a gap."""
         if t.size == 0:
             return
         prev = self._last_t if self._last_t is not None else t[0]
@@ -163,9 +169,17 @@ class Timebase:
         for s in starts:
             d[s] = 0.0
         pos = d[d > 0]
-        if self._period is None and pos.size >= 8:
-            self._period = float(np.median(pos))
-        elif pos.size >= 64:
-            self._period = float(np.median(pos))
-        if self._period:
-            self.counters.gaps += int(np.count_nonzero(d > 1.5 * self._period))
+        if self._period is None:
+            self._early = np.concatenate((self._early, pos))
+            if self._early.size < _PERIOD_INTERVALS:
+                return
+            self._period = float(np.median(self._early[:_PERIOD_INTERVALS]))
+            pos = self._early
+            self._early = np.empty(0)
+        self.counters.gaps += int(np.count_nonzero(pos > 1.5 * self._period))
+
+    def _provisional_period(self) -> float | None:
+        """The period, or while it is not yet fixed, the median of the intervals so far."""
+        if self._period is not None:
+            return self._period
+        return float(np.median(self._early)) if self._early.size else None
