@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import gzip
 import math
-import warnings
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -19,6 +18,7 @@ from typing import BinaryIO
 import numpy as np
 
 from livestep.errors import InputError
+from livestep.numparse import parse_block
 from livestep.samples import SampleChunk
 
 __all__ = ["ColumnMap", "ReadStats", "RecordingReader", "TIME_UNITS"]
@@ -201,17 +201,8 @@ class RecordingReader:
         data = None
         if b"\r" in block:
             block = block.replace(b"\r", b"")
-        if block.count(b",") == nlines * (ncol - 1) and b"\n\n" not in block:
-            data = _plain_decimals(block, nlines, ncol)
-            if data is None and _rows_aligned(block, ncol):
-                with warnings.catch_warnings():
-                    warnings.simplefilter("ignore", DeprecationWarning)
-                    try:
-                        flat = np.fromstring(block.replace(b"\n", b","), sep=",")
-                    except ValueError:  # a cell that is not a number: the slow path finds it
-                        flat = np.empty(0)
-                if flat.size == nlines * ncol:
-                    data = flat.reshape(nlines, ncol)
+        data = parse_block(block, nlines, ncol)
+        if data is not None:
             lines = np.arange(first_line, first_line + nlines)
         if data is None:
             data, lines = self._parse_slow(block, first_line)
@@ -265,68 +256,6 @@ class RecordingReader:
             rows.append(row)
             lines.append(ln)
         return (np.array(rows, dtype=float).reshape(-1, ncol), np.array(lines, dtype=np.intp))
-
-
-_PLAIN_BYTES = b"0123456789.-,\n"
-_TO_INTEGERS = bytes.maketrans(b"\n", b",")  # with "." deleted: one integer per cell
-_MAX_DIGITS = 15  # an integer below 10**15 < 2**53 is an exact double
-_POW10 = 10.0 ** np.arange(_MAX_DIGITS + 1)
-
-
-def _plain_decimals(block: bytes, nlines: int, ncol: int) -> np.ndarray | None:
-    """The (nlines, ncol) values of a block of rows whose every cell is a plain decimal
-    (``-`` if negative, digits with at most one ``.``, at most 15 digits in all), or
-    ``None`` when any cell is anything else (exponents, nan, spaces, ``+``, empty cells,
-    rows of the wrong length), for the general parsers to handle.
-
-    Each value is its digits read as an integer (exact in a double) divided by a power of
-    ten (exact too): one correctly rounded division, so the same double as ``float()``
-    and ``np.fromstring`` give for that text, bit for bit, ``-0.0`` included.
-    """
-    if block.translate(None, _PLAIN_BYTES):
-        return None
-    b = np.frombuffer(block, dtype=np.uint8)
-    # Cell ends ("," and newline) and decimal points, in order: a "." belongs to the cell
-    # the next end closes, and two in a row would be two in one cell.
-    marks = np.flatnonzero((b == ord(",")) | (b == ord("\n")) | (b == ord(".")))
-    is_dot = b[marks] == ord(".")
-    ends = marks[~is_dot]
-    if ends.size != nlines * ncol or np.any(b[ends[ncol - 1::ncol]] != ord("\n")):
-        return None  # rows of the wrong length
-    at_dot = np.flatnonzero(is_dot)
-    if np.any(np.diff(at_dot) == 1):
-        return None  # two "." in a cell
-    cell_of_dot = at_dot - np.arange(at_dot.size)
-    starts = np.concatenate(([0], ends[:-1] + 1))
-    negative = b[starts] == ord("-")
-    if block.count(b"-") != np.count_nonzero(negative):
-        return None  # a "-" that does not lead its cell
-    n_frac = np.zeros(ends.size, dtype=np.intp)
-    n_frac[cell_of_dot] = ends[cell_of_dot] - marks[at_dot] - 1
-    n_digits = ends - starts - negative
-    n_digits[cell_of_dot] -= 1
-    if n_digits.min() < 1 or n_digits.max() > _MAX_DIGITS:
-        return None
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", DeprecationWarning)
-        try:
-            digits = np.fromstring(block.translate(_TO_INTEGERS, b"."), dtype=np.int64,
-                                   sep=",")
-        except ValueError:
-            return None
-    if digits.size != ends.size:
-        return None
-    values = np.abs(digits).astype(np.float64) / _POW10[n_frac]
-    np.negative(values, out=values, where=negative)
-    return values.reshape(nlines, ncol)
-
-
-def _rows_aligned(block: bytes, ncol: int) -> bool:
-    """Every line of the block has exactly ``ncol - 1`` commas."""
-    b = np.frombuffer(block, dtype=np.uint8)
-    commas = np.cumsum(b == ord(","))
-    at_newline = commas[b == ord("\n")]
-    return bool(np.all(np.diff(at_newline, prepend=0) == ncol - 1))
 
 
 def _is_number(text: str) -> bool:

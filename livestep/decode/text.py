@@ -13,7 +13,6 @@ how they were split into reads.
 from __future__ import annotations
 
 import re
-import warnings
 from collections import deque
 from dataclasses import dataclass
 
@@ -23,6 +22,7 @@ from numpy.typing import NDArray
 from livestep.decode.counters import LinkCounters
 from livestep.decode.timebase import ClockSettings, Timebase
 from livestep.errors import InputError
+from livestep.numparse import parse_block
 from livestep.samples import SampleChunk
 
 __all__ = ["TextDecoder", "TextFormat"]
@@ -32,7 +32,6 @@ _DETECT_LINES = 8
 _NUMBER = rb"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?|[-+]?(?:nan|inf)"
 _PAIR = re.compile(rb"([A-Za-z_][\w.]*)\s*[=:]\s*(" + _NUMBER + rb")", re.IGNORECASE)
 _SPACES = re.compile(rb"[ \t]+")
-_NUMERIC_BYTES = b"0123456789.-+eE,\n"
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -280,20 +279,9 @@ class TextDecoder:
                 block = block[1:]
         elif delim != b",":
             block = block.replace(delim, b",")
-        if block.translate(None, _NUMERIC_BYTES) or b"\n\n" in block or block[:1] == b"\n":
+        if block[:1] == b"\n":
             return None
-        nlines = block.count(b"\n")
-        if block.count(b",") != nlines * (ncol - 1):
-            return None
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", DeprecationWarning)
-            try:
-                flat = np.fromstring(block.replace(b"\n", b","), sep=",")
-            except ValueError:
-                return None
-        if flat.size != nlines * ncol:
-            return None
-        return flat.reshape(nlines, ncol)
+        return parse_block(block, block.count(b"\n"), ncol)
 
     def _parse_line(self, line: bytes, ncol: int) -> list[float] | None:
         line = line.strip()

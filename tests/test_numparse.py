@@ -14,6 +14,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+import livestep.numparse as numparse
 import livestep.recording as recording
 from livestep.errors import InputError
 
@@ -34,7 +35,7 @@ UNUSUAL = ["", ".", "-", "-.", "1.2.3", "1-2", "--1", "+1", "1e3", "1E-3", "nan"
 
 
 def _values(block: bytes, ncol: int) -> np.ndarray | None:
-    return recording._plain_decimals(block, block.count(b"\n"), ncol)
+    return numparse._plain_decimals(block, block.count(b"\n"), ncol)
 
 
 @given(st.lists(plain_decimal(), min_size=3, max_size=90).map(lambda c: c[: len(c) // 3 * 3]))
@@ -67,7 +68,7 @@ def _read(path: Path, fast: bool, monkeypatch: pytest.MonkeyPatch):
     with monkeypatch.context() as m:
         m.setattr(recording, "_BLOCK_BYTES", 97)  # many blocks, cut anywhere
         if not fast:
-            m.setattr(recording, "_plain_decimals", lambda *args: None)
+            m.setattr(numparse, "_plain_decimals", lambda *args: None)
         try:
             reader = recording.RecordingReader(path)
             chunks = [(c.t.tobytes(), c.setpoint.tobytes(), c.feedback.tobytes())
