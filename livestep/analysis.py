@@ -7,8 +7,11 @@ step's window closes.
 
 from __future__ import annotations
 
+import multiprocessing as mp
+from collections import deque
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
+from multiprocessing.pool import AsyncResult
 
 from livestep.detect import DetectorSettings, StepDetector, StepWindow
 from livestep.measure import MeasureSettings, StepMetrics, measure_step
@@ -76,9 +79,31 @@ class StepAnalyzer:
 
 
 def analyze_chunks(chunks: Iterable[SampleChunk], settings: AnalysisSettings = AnalysisSettings(),
-                   *, has_setpoint: bool = True) -> Iterator[StepResult]:
-    """Yield every step of a stream of chunks, in order."""
-    analyzer = StepAnalyzer(settings, has_setpoint=has_setpoint)
-    for chunk in chunks:
-        yield from analyzer.feed(chunk)
-    yield from analyzer.finish()
+                   *, has_setpoint: bool = True, workers: int = 1) -> Iterator[StepResult]:
+    """Yield every step of a stream of chunks, in order.
+
+    ``workers`` > 1 measures and fits the steps in that many forked worker processes
+    while this one reads and detects (offline analysis of long recordings); the results
+    are the same, in the same order. Start it before any other thread of the process.
+    """
+    if workers <= 1 or "fork" not in mp.get_all_start_methods():
+        analyzer = StepAnalyzer(settings, has_setpoint=has_setpoint)
+        for chunk in chunks:
+            yield from analyzer.feed(chunk)
+        yield from analyzer.finish()
+        return
+    detector = StepDetector(settings.detect, has_setpoint=has_setpoint)
+    with mp.get_context("fork").Pool(workers) as pool:  # forked now, before any reading
+        pending: deque[AsyncResult[StepResult]] = deque()
+
+        def submit(windows: list[StepWindow]) -> Iterator[StepResult]:
+            for w in windows:
+                pending.append(pool.apply_async(analyze_window, (w, settings)))
+            while pending and (pending[0].ready() or len(pending) > 8 * workers):
+                yield pending.popleft().get()
+
+        for chunk in chunks:
+            yield from submit(detector.feed(chunk.t, chunk.feedback, chunk.setpoint))
+        yield from submit(detector.finish())
+        while pending:
+            yield pending.popleft().get()

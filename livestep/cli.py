@@ -7,6 +7,7 @@ Exit statuses: 0 success; 2 bad input or options (one line on stderr);
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import time
 from collections.abc import Sequence
@@ -20,7 +21,7 @@ from livestep.detect import DetectorSettings
 from livestep.errors import EXIT_INTERRUPTED, EXIT_OK, InputError
 from livestep.live import run_live, run_replay
 from livestep.measure import MeasureSettings
-from livestep.recording import TIME_UNITS, ColumnMap, RecordingReader
+from livestep.recording import TIME_UNITS, ColumnMap, RecordingReader, read_ahead
 from livestep.session import Decoder, make_decoder
 
 __all__ = ["main"]
@@ -137,6 +138,8 @@ def build_parser() -> argparse.ArgumentParser:
     cols.add_argument("--time-unit", default="s", choices=sorted(TIME_UNITS),
                       help="unit of the time column (default s)")
     _add_analysis_options(a)
+    a.add_argument("--jobs", type=int, default=min(os.cpu_count() or 1, 4), metavar="N",
+                   help="worker processes measuring steps (default: the CPU count, at most 4)")
 
     live = sub.add_parser("live", help="measure steps live from a serial port or URL,"
                           " recording everything")
@@ -184,7 +187,8 @@ def _analyze(args: argparse.Namespace) -> int:
     reader = RecordingReader(args.file, ColumnMap(
         time=args.time, setpoint=args.setpoint, feedback=args.feedback,
         time_unit=args.time_unit))
-    results = list(analyze_chunks(reader, settings, has_setpoint=reader.has_setpoint))
+    results = list(analyze_chunks(read_ahead(reader), settings,
+                                  has_setpoint=reader.has_setpoint, workers=args.jobs))
     st = reader.stats
     notes = []
     if st.bad:

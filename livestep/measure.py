@@ -40,6 +40,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import NDArray
@@ -164,7 +165,13 @@ def _smooth(y: FloatArray, window: int) -> FloatArray:
     half = window // 2
     if window < 5 or y.size <= 2 * half:
         return y
-    return oaconvolve(np.pad(y, half, mode="reflect"), savgol_coeffs(window, 3), mode="valid")
+    return oaconvolve(np.pad(y, half, mode="reflect"), _savgol(window), mode="valid")
+
+
+@lru_cache(maxsize=256)
+def _savgol(window: int) -> FloatArray:
+    """Cubic Savitzky-Golay smoothing coefficients (the same for every step of a length)."""
+    return savgol_coeffs(window, 3)
 
 
 def _settling(tg: FloatArray, r: FloatArray, start: int, band: float) -> tuple[float | None, int]:
@@ -250,7 +257,15 @@ def measure_step(
         if lo_t is not None and hi_t is not None:
             window = _odd(0.4 * (hi_t - lo_t) / dt, 1)
             window = window if window >= 5 else 1
-            ys = _smooth(yg, window)
+            k = (window // 10) | 1  # odd, so the box is centred on its point
+            if k >= 3:
+                # A long smoothing span: average blocks of k samples first (a box ten
+                # times shorter than the span, so the smoothing is the same to first
+                # order) and go on with every k-th point, the step instant among them.
+                yg = uniform_filter1d(yg, k, mode="nearest")[g0 % k::k]
+                tg = tg[g0 % k::k]
+                g0 //= k
+            ys = _smooth(yg, _odd(window / max(k, 1), 5) if window >= 5 else 1)
     for _ in range(3):
         amp = final - initial
         if amp == 0.0 or abs(amp) < 5.0 * sigma:

@@ -16,10 +16,11 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy.optimize import least_squares
+from scipy.optimize import OptimizeResult, least_squares
 
 from livestep import second_order as so
 from livestep.measure import StepMetrics
@@ -89,13 +90,32 @@ def _bin_edges(pre: float, span: float, finest: float) -> FloatArray:
     return np.concatenate((before, [0.0], after))
 
 
+def _dead_time_is_clear(sol: OptimizeResult, noise_var: float) -> bool:
+    """The fitted dead time is more than 4 standard errors from zero (a Wald test, so
+    the likelihood-ratio refit is not needed); errors from the Jacobian at the solution."""
+    q = abs(float(sol.x[4]))
+    if q == 0.0:
+        return False
+    try:
+        cov = np.linalg.inv(sol.jac.T @ sol.jac) * noise_var
+    except np.linalg.LinAlgError:
+        return False
+    se = math.sqrt(max(float(cov[4, 4]), 0.0))
+    return se > 0.0 and q / se > 4.0
+
+
 def _model_crossing(zeta: float, level: float) -> float:
-    """Normalised time wn*t of the first crossing of ``level`` by the unit step response."""
+    """Normalised time wn*t of the first crossing of ``level`` by the unit step response
+    (to 0.1 % of zeta: a start value for the fit)."""
+    return _crossing(round(zeta, 3), level)
+
+
+@lru_cache(maxsize=4096)
+def _crossing(zeta: float, level: float) -> float:
     horizon = 20.0 * max(1.0, zeta) + 10.0
     x = np.linspace(0.0, horizon, 4001)
     s = so.step_response(x, zeta, 1.0)
-    i = int(np.argmax(s >= level))
-    return float(x[i])
+    return float(x[int(np.argmax(s >= level))])
 
 
 def _initial_guess(m: StepMetrics) -> tuple[float, float, float]:
@@ -149,9 +169,12 @@ def fit_second_order(
 
     zeta0, wn0, theta0 = _initial_guess(m)
 
+    # Parameters: offset, gain (both of the normalised response), log zeta, log wn and
+    # q = sqrt(dead time), which keeps the dead time at or above zero without bounds so
+    # the fast Levenberg-Marquardt solver (MINPACK) can be used.
     def residual(p: FloatArray, tt: FloatArray, yy: FloatArray) -> FloatArray:
-        c0, g, log_zeta, log_wn, theta = p
-        return c0 + g * so.step_response(tt - theta, math.exp(log_zeta), math.exp(log_wn)) - yy
+        c0, g, log_zeta, log_wn, q = p
+        return c0 + g * so.step_response(tt - q * q, math.exp(log_zeta), math.exp(log_wn)) - yy
 
     def weighted(p: FloatArray, tt: FloatArray, yy: FloatArray) -> FloatArray:
         return weight * residual(p, tt, yy)
@@ -159,37 +182,36 @@ def fit_second_order(
     def jacobian(p: FloatArray, tt: FloatArray, yy: FloatArray) -> FloatArray:
         # s(tau; zeta, wn) = S(wn tau; zeta): ds/dlog(wn) = tau h, ds/dtheta = -h; the
         # zeta column by a forward difference.
-        c0, g, log_zeta, log_wn, theta = p
+        c0, g, log_zeta, log_wn, q = p
         zeta, wn = math.exp(log_zeta), math.exp(log_wn)
-        tau = tt - theta
+        tau = tt - q * q
         s, h = so.step_and_impulse(tau, zeta, wn)
         dz = 1e-6
         s_dz = so.step_response(tau, math.exp(log_zeta + dz), wn)
         return weight[:, None] * np.column_stack((np.ones_like(tt), s, g * (s_dz - s) / dz,
-                                                  g * np.maximum(tau, 0.0) * h, -g * h))
+                                                  g * np.maximum(tau, 0.0) * h, -2 * q * g * h))
 
-    x0 = np.array([0.0, 1.0, math.log(zeta0), math.log(wn0), min(theta0, 0.4 * span)])
-    lower = [-0.5, 0.5, math.log(0.005), math.log(wn0) - 3.0, 0.0]
-    upper = [0.5, 1.5, math.log(50.0), math.log(wn0) + 3.0, 0.5 * span]
-    best = least_squares(weighted, np.clip(x0, lower, upper), jac=jacobian, bounds=(lower, upper),
-                         args=(tb, yb), x_scale=[0.1, 0.1, 0.5, 0.5, 1.0 / wn0], method="trf")
+    q0 = math.sqrt(max(min(theta0, 0.4 * span), 1e-3 / wn0))
+    x0 = np.array([0.0, 1.0, math.log(zeta0), math.log(wn0), q0])
+    best = least_squares(weighted, x0, jac=jacobian, args=(tb, yb), method="lm",
+                         x_scale=np.array([0.1, 0.1, 0.5, 0.5, q0]))
     res = residual(best.x, ts, yn)
-    if best.x[4] > 0.0:
+    # Residual variance, floored at (0.01 % of the amplitude)^2 so that exact data do not
+    # make a numerical crumb of improvement look significant.
+    noise_var = max(float(np.mean(res**2)), 1e-8)
+    if not _dead_time_is_clear(best, noise_var):
         # Keep the dead time only if the data need it: refit without one and compare by a
         # likelihood-ratio test (Wilks: 2 x the cost difference over the noise variance is
         # chi-square with one degree of freedom; 95 % level, 3.84).
         no_delay = least_squares(
-            lambda q, tt, yy: weighted(np.append(q, 0.0), tt, yy), best.x[:4],
-            jac=lambda q, tt, yy: jacobian(np.append(q, 0.0), tt, yy)[:, :4],
-            bounds=(lower[:4], upper[:4]), args=(tb, yb), x_scale=[0.1, 0.1, 0.5, 0.5],
-            method="trf")
-        # Residual variance, floored at (0.01 % of the amplitude)^2 so that exact data do
-        # not make a numerical crumb of improvement look significant.
-        noise_var = max(float(np.mean(res**2)), 1e-8)
+            lambda v, tt, yy: weighted(np.append(v, 0.0), tt, yy), best.x[:4],
+            jac=lambda v, tt, yy: jacobian(np.append(v, 0.0), tt, yy)[:, :4],
+            args=(tb, yb), method="lm", x_scale=np.array([0.1, 0.1, 0.5, 0.5]))
         if 2.0 * (no_delay.cost - best.cost) / noise_var < _CHI2_1DOF_95:
             best.x = np.append(no_delay.x, 0.0)
             res = residual(best.x, ts, yn)
-    c0, g, log_zeta, log_wn, theta = best.x
+    c0, g, log_zeta, log_wn, q = best.x
+    theta = q * q
     zeta, wn = math.exp(log_zeta), math.exp(log_wn)
     ss_tot = float(np.sum((yn - yn.mean()) ** 2))
     r2 = 1.0 - float(np.sum(res**2)) / ss_tot if ss_tot > 0 else 0.0

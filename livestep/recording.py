@@ -10,7 +10,9 @@ from __future__ import annotations
 
 import gzip
 import math
-from collections.abc import Iterator
+import queue
+import threading
+from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import BinaryIO
@@ -21,7 +23,7 @@ from livestep.errors import InputError
 from livestep.numparse import parse_block
 from livestep.samples import SampleChunk
 
-__all__ = ["ColumnMap", "ReadStats", "RecordingReader", "TIME_UNITS"]
+__all__ = ["ColumnMap", "ReadStats", "RecordingReader", "TIME_UNITS", "read_ahead"]
 
 TIME_UNITS = {"s": 1.0, "ms": 1e-3, "us": 1e-6}
 _BLOCK_BYTES = 1 << 22
@@ -272,3 +274,39 @@ def read_all(path: str | Path, columns: ColumnMap = ColumnMap()) -> tuple[Record
     reader = RecordingReader(path, columns)
     return reader, list(reader)
 
+
+
+def read_ahead(chunks: Iterable[SampleChunk], depth: int = 2) -> Iterator[SampleChunk]:
+    """Iterate ``chunks`` with the next ``depth`` read (parsed) in a background thread, so
+    reading overlaps the analysis (numpy releases the GIL while it parses). Errors from the
+    reader are raised here, in the consumer, in their place in the sequence."""
+    q: queue.Queue[tuple[str, object]] = queue.Queue(maxsize=depth)
+    stop = threading.Event()
+
+    def run() -> None:
+        try:
+            for chunk in chunks:
+                while not stop.is_set():
+                    try:
+                        q.put(("chunk", chunk), timeout=0.1)
+                        break
+                    except queue.Full:
+                        continue
+                if stop.is_set():
+                    return
+            q.put(("end", None))
+        except BaseException as exc:  # noqa: BLE001 - handed to the consumer
+            q.put(("error", exc))
+
+    worker = threading.Thread(target=run, name="livestep-read-ahead", daemon=True)
+    worker.start()
+    try:
+        while True:
+            kind, item = q.get()
+            if kind == "end":
+                return
+            if kind == "error":
+                raise item  # type: ignore[misc]
+            yield item  # type: ignore[misc]
+    finally:
+        stop.set()

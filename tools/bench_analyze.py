@@ -148,7 +148,7 @@ def run_livestep(path: str) -> dict[str, float]:
     from livestep.analysis import AnalysisSettings, analyze_chunks
     from livestep.detect import DetectorSettings
     from livestep.measure import MeasureSettings
-    from livestep.recording import ColumnMap, RecordingReader
+    from livestep.recording import ColumnMap, RecordingReader, read_ahead
 
     t0 = time.perf_counter()
     settings = AnalysisSettings(
@@ -156,7 +156,9 @@ def run_livestep(path: str) -> dict[str, float]:
         measure=MeasureSettings(rise_levels=(10.0, 90.0), settling_band=2.0), fit_model=True)
     reader = RecordingReader(path, ColumnMap(time="t", setpoint=None, feedback="feedback",
                                              time_unit="s"))
-    results = list(analyze_chunks(reader, settings, has_setpoint=reader.has_setpoint))
+    workers = min(os.cpu_count() or 1, 4)  # the 'livestep analyze' default
+    results = list(analyze_chunks(read_ahead(reader), settings,
+                                  has_setpoint=reader.has_setpoint, workers=workers))
     seconds = time.perf_counter() - t0
     return {"seconds": seconds, "samples": reader.stats.good, "steps": len(results),
             "fitted": sum(r.model is not None for r in results)}

@@ -15,7 +15,9 @@ Sections (add one: write a function returning ``Row``s, add it to ``SECTIONS``):
 
 - ``binary``: :class:`livestep.decode.frames.FrameDecoder` on 2-channel sample frames
   (20 bytes each) vs a pure-Python loop (split at 0x00, COBS decode byte chain by byte
-  chain, ``binascii.crc_hqx``, ``struct.unpack``).
+  chain, ``binascii.crc_hqx``, ``struct.unpack``). Target: at least 1 M frames/s.
+- ``text``: :class:`livestep.decode.text.TextDecoder` on ``t_us,setpoint,feedback`` lines
+  vs a per-line ``split`` + ``float`` loop. Target: at least 2 M lines/s.
 """
 
 from __future__ import annotations
@@ -161,9 +163,63 @@ def bench_binary(args: argparse.Namespace) -> list[Row]:
     ]
 
 
+# -- section: text lines -------------------------------------------------------------------
+def text_stream(n: int) -> bytes:
+    """A header and ``n`` lines ``t_us,setpoint,feedback`` (3 numeric fields, ~24 B)."""
+    ts, values = axis_signal(n)
+    us = np.arange(n, dtype=np.int64) * int(1e6 / RATE_HZ)
+    body = "\n".join(f"{a},{b:.3f},{c:.4f}" for a, b, c in zip(
+        us.tolist(), values[:, 0].tolist(), values[:, 1].tolist(), strict=True))
+    del ts
+    return ("t,setpoint,feedback\n" + body + "\n").encode()
+
+
+def naive_text(stream: Iterable[bytes]) -> int:
+    """Per line: split into lines, ``split(",")``, ``float`` each field; returns samples."""
+    tail = b""
+    rows: list[list[float]] = []
+    for data in stream:
+        lines = (tail + bytes(data)).split(b"\n")
+        tail = lines.pop()
+        for line in lines:
+            try:
+                rows.append([float(x) for x in line.split(b",")])
+            except ValueError:
+                continue
+    return len(rows)
+
+
+def bench_text(args: argparse.Namespace) -> list[Row]:
+    from livestep.decode.text import TextDecoder
+    from livestep.decode.timebase import ClockSettings
+
+    stream = text_stream(args.frames)
+    read = args.read * 1024
+
+    def livestep() -> int:
+        dec = TextDecoder(clock=ClockSettings(unit="us"))
+        n = sum(len(c) for data in reads(stream, read) for c in dec.feed(bytes(data)))
+        return n + sum(len(c) for c in dec.flush())
+
+    seconds, decoded = best_of(args.repeat, livestep)
+    sub = min(args.baseline_frames, args.frames)
+    cut = stream.index(b"\n", int(len(stream) * sub / args.frames)) + 1
+    base_seconds, base_decoded = best_of(args.repeat, lambda: naive_text(
+        reads(stream[:cut], read)))
+    per_line = len(stream) / args.frames
+    check = "" if decoded == args.frames else " MISMATCH"
+    return [
+        Row("text", "livestep TextDecoder", decoded, len(stream), seconds,
+            note=f"{per_line:.1f} B/line, 3 fields, {args.read} KiB reads{check}"),
+        Row("text", "naive split + float loop", base_decoded, cut, base_seconds,
+            baseline=True, note=f"on {base_decoded:,} lines"),
+    ]
+
+
 # -- report ----------------------------------------------------------------------------------
 SECTIONS: dict[str, Callable[[argparse.Namespace], list[Row]]] = {
     "binary": bench_binary,
+    "text": bench_text,
 }
 
 
