@@ -44,9 +44,6 @@ from functools import lru_cache
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy.integrate import trapezoid
-from scipy.ndimage import uniform_filter1d
-from scipy.signal import oaconvolve, savgol_coeffs
 
 __all__ = ["MeasureSettings", "StepMetrics", "measure_step", "noise_sigma", "robust_level"]
 
@@ -161,17 +158,33 @@ def _odd(n: float, lo: int) -> int:
 
 
 def _smooth(y: FloatArray, window: int) -> FloatArray:
-    """Cubic Savitzky-Golay smoothing (zero phase), mirrored at the ends, by FFT convolution."""
+    """Cubic Savitzky-Golay smoothing (zero phase), mirrored at the ends."""
     half = window // 2
     if window < 5 or y.size <= 2 * half:
         return y
-    return oaconvolve(np.pad(y, half, mode="reflect"), _savgol(window), mode="valid")
+    return np.convolve(np.pad(y, half, mode="reflect"), _savgol(window), mode="valid")
 
 
 @lru_cache(maxsize=256)
 def _savgol(window: int) -> FloatArray:
-    """Cubic Savitzky-Golay smoothing coefficients (the same for every step of a length)."""
-    return savgol_coeffs(window, 3)
+    """Cubic Savitzky-Golay smoothing coefficients: the weights that give the value at the
+    centre of a least-squares cubic through ``window`` points (Savitzky & Golay, Anal.
+    Chem. 36, 1964). The same for every step of a length, so cached."""
+    half = window // 2
+    design = np.vander(np.arange(-half, half + 1, dtype=float), 4, increasing=True)
+    return np.linalg.pinv(design)[0]
+
+
+def _box(y: FloatArray, size: int) -> FloatArray:
+    """Centred moving average over an odd ``size``, the ends extended with their values."""
+    half = size // 2
+    c = np.cumsum(np.pad(y, (half + 1, half), mode="edge"))
+    return (c[size:] - c[:-size]) / size
+
+
+def _trapezoid(y: FloatArray, x: FloatArray) -> float:
+    """Integral of y over x by the trapezoid rule."""
+    return float(np.sum(0.5 * (y[1:] + y[:-1]) * np.diff(x)))
 
 
 def _settling(tg: FloatArray, r: FloatArray, start: int, band: float) -> tuple[float | None, int]:
@@ -251,7 +264,7 @@ def measure_step(
     if abs(amp) >= 5.0 * sigma and sigma > 1e-6 * abs(amp) and dt > 0:
         # Smooth over 0.4 of the rise time: a cubic fit that short follows the response
         # closely. The rise time comes from a coarse moving average first.
-        coarse = (uniform_filter1d(yg, _odd(yg.size / 20, 5), mode="nearest") - initial) / amp
+        coarse = (_box(yg, _odd(yg.size / 20, 5)) - initial) / amp
         lo_t = _first_crossing(tg, coarse, 0.1, g0)
         hi_t = _first_crossing(tg, coarse, 0.9, g0)
         if lo_t is not None and hi_t is not None:
@@ -262,7 +275,7 @@ def measure_step(
                 # A long smoothing span: average blocks of k samples first (a box ten
                 # times shorter than the span, so the smoothing is the same to first
                 # order) and go on with every k-th point, the step instant among them.
-                yg = uniform_filter1d(yg, k, mode="nearest")[g0 % k::k]
+                yg = _box(yg, k)[g0 % k::k]
                 tg = tg[g0 % k::k]
                 g0 //= k
             ys = _smooth(yg, _odd(window / max(k, 1), 5) if window >= 5 else 1)
@@ -346,9 +359,9 @@ def measure_step(
             sse_pct = 100.0 * sse / sp_change
     if setpoint is not None and post_t.size > 1:
         e = np.abs(np.asarray(setpoint, dtype=float)[i_step:] - y[i_step:])
-        iae = float(trapezoid(e, post_t))
-        ise = float(trapezoid(e * e, post_t))
-        itae = float(trapezoid((post_t - t_step) * e, post_t))
+        iae = _trapezoid(e, post_t)
+        ise = _trapezoid(e * e, post_t)
+        itae = _trapezoid((post_t - t_step) * e, post_t)
 
     return StepMetrics(
         t_step=t_step, direction=direction, setpoint_before=setpoint_before,
