@@ -11,7 +11,16 @@ import warnings
 
 import numpy as np
 
-__all__ = ["parse_block"]
+__all__ = ["is_number", "parse_block"]
+
+
+def is_number(cell: bytes | str) -> bool:
+    """Whether ``float()`` reads the cell (nan and inf included)."""
+    try:
+        float(cell)
+    except ValueError:
+        return False
+    return True
 
 
 def parse_block(block: bytes, nlines: int, ncol: int) -> np.ndarray | None:

@@ -20,7 +20,7 @@ from typing import BinaryIO
 import numpy as np
 
 from livestep.errors import InputError
-from livestep.numparse import parse_block
+from livestep.numparse import is_number, parse_block
 from livestep.samples import SampleChunk
 
 __all__ = ["ColumnMap", "ReadStats", "RecordingReader", "TIME_UNITS", "read_ahead"]
@@ -139,7 +139,7 @@ class RecordingReader:
             raise InputError(f"the header has one column ({header[0]!r}); need at least time"
                              " and feedback, separated by commas", source=str(self.path),
                              line=line_no)
-        if all(_is_number(h) for h in header):
+        if all(is_number(h) for h in header):
             raise InputError("the first row is numbers, not a header naming the columns",
                              source=str(self.path), line=line_no)
         self.header = header
@@ -258,14 +258,6 @@ class RecordingReader:
             rows.append(row)
             lines.append(ln)
         return (np.array(rows, dtype=float).reshape(-1, ncol), np.array(lines, dtype=np.intp))
-
-
-def _is_number(text: str) -> bool:
-    try:
-        float(text)
-    except ValueError:
-        return False
-    return True
 
 
 def read_all(path: str | Path, columns: ColumnMap = ColumnMap()) -> tuple[RecordingReader,

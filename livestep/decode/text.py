@@ -22,7 +22,7 @@ from numpy.typing import NDArray
 from livestep.decode.counters import LinkCounters
 from livestep.decode.timebase import ClockSettings, Timebase
 from livestep.errors import InputError
-from livestep.numparse import parse_block
+from livestep.numparse import is_number, parse_block
 from livestep.samples import SampleChunk
 
 __all__ = ["TextDecoder", "TextFormat"]
@@ -49,14 +49,6 @@ class TextFormat:
     setpoint: str | None = None
     feedback: str = "feedback"
     max_line: int = 4096
-
-
-def _is_float(cell: bytes) -> bool:
-    try:
-        float(cell)
-    except ValueError:
-        return False
-    return True
 
 
 def _split(line: bytes, delim: bytes) -> list[bytes]:
@@ -141,7 +133,7 @@ class TextDecoder:
         if len(_PAIR.findall(line)) >= 2:
             return True
         cells = [c for c in re.split(rb"[,;\s]+", line.strip()) if c]
-        return len(cells) >= 1 and all(_is_float(c) for c in cells)
+        return len(cells) >= 1 and all(is_number(c) for c in cells)
 
     def _decide(self) -> bool:
         """Fix delimiter, header and column roles from the pending lines; ``False`` (and
@@ -162,7 +154,7 @@ class TextDecoder:
             delim = (fmt.delimiter.encode() if fmt.delimiter is not None
                      else self._detect_delimiter(lines))
             widths = [len(cells) for ln in lines
-                      if (cells := _split(ln, delim)) and all(_is_float(c) for c in cells)]
+                      if (cells := _split(ln, delim)) and all(is_number(c) for c in cells)]
             ncol = max(set(widths), key=widths.count) if widths else 0
             if ncol:
                 self._delim = delim
@@ -188,7 +180,7 @@ class TextDecoder:
         header = None
         for ln in lines:
             cells = _split(ln, delim)
-            if all(_is_float(c) for c in cells):
+            if all(is_number(c) for c in cells):
                 break
             if len(cells) == ncol and all(re.fullmatch(rb"[A-Za-z_][\w .\[\]/%-]*", c)
                                           for c in cells):
@@ -199,7 +191,7 @@ class TextDecoder:
         best, best_score = b",", -1
         for d in (b",", b"\t", b";", b" "):
             widths = [len(cells) for ln in lines
-                      if len(cells := _split(ln, d)) >= 2 and all(_is_float(c) for c in cells)]
+                      if len(cells := _split(ln, d)) >= 2 and all(is_number(c) for c in cells)]
             score = max((widths.count(w) for w in set(widths)), default=0)
             if score > best_score:
                 best, best_score = d, score
@@ -296,7 +288,7 @@ class TextDecoder:
                 return [found.get(n, np.nan) for n in self.columns]
             return self._not_data(line)
         cells = _split(line, self._delim or b",")
-        if not all(_is_float(c) for c in cells):
+        if not all(is_number(c) for c in cells):
             return self._not_data(line)
         if len(cells) != ncol:
             self.counters.bad["wrong field count"] += 1
