@@ -221,6 +221,9 @@ def _live(args: argparse.Namespace) -> int:
                         exclusive=not args.shared,
                         dtr=None if args.dtr is None else args.dtr == "on",
                         rts=None if args.rts is None else args.rts == "on")
+    if args.rate:
+        print(f"livestep: no device time: samples stamped from their count at {args.rate:g} Hz"
+              " (host arrival times come in bursts and are not used)", file=sys.stderr)
     record = None
     if not args.no_record:
         record = Path(args.record or time.strftime("livestep-%Y%m%d-%H%M%S.csv"))

@@ -72,6 +72,7 @@ def run_live(port: PortSettings, decoder: Decoder, settings: AnalysisSettings, *
             "source": port.url, "decoder": describe_decoder(decoder)})
         sinks.append(recorder)
         status_console.print(f"recording to {recorder.path}")
+
     session = Session(decoder, settings, sinks)
     stop = threading.Event()
     status = EXIT_OK
@@ -101,8 +102,10 @@ def run_live(port: PortSettings, decoder: Decoder, settings: AnalysisSettings, *
                 _handle(session, reader, kind, payload)
         session.close()
         status_console.print(counters_table(session.counters))
-        if recorder is not None:
+        if recorder is not None and recorder.rows:
             status_console.print(f"recorded {recorder.rows} samples to {recorder.path}")
+        elif recorder is not None:
+            status_console.print("no samples received: no recording written")
     return status
 
 
