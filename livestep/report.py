@@ -8,6 +8,7 @@ import math
 from collections.abc import Sequence
 from typing import IO, Any
 
+from rich import box
 from rich.console import Console
 from rich.table import Table
 
@@ -72,8 +73,8 @@ def write_csv(results: Sequence[StepResult], out: IO[str]) -> None:
                     "; ".join(rec["warnings"])])
 
 
-def _ms(x: float | None) -> str:
-    return "-" if x is None else f"{1e3 * x:.2f}"
+def _ms(x: float | None, fmt: str = ".1f") -> str:
+    return "-" if x is None else format(1e3 * x, fmt)
 
 
 def _num(x: float | None, fmt: str = ".4g") -> str:
@@ -81,20 +82,23 @@ def _num(x: float | None, fmt: str = ".4g") -> str:
 
 
 def render_table(results: Sequence[StepResult], console: Console, title: str) -> None:
-    """A rich table, one row per step, times in milliseconds."""
-    table = Table(title=title, header_style="bold", show_lines=False)
-    for name in ("#", "t_step s", "dir", "amplitude", "rise ms", "peak ms", "OS %",
-                 "settle ms", "SSE %", "IAE", "zeta", "wn rad/s", "dead ms", "R^2"):
-        table.add_column(name, justify="right")
+    """A rich table, one row per step, times in milliseconds (all figures: ``--json``)."""
+    table = Table(title=title, box=box.SIMPLE_HEAD, pad_edge=False, header_style="bold",
+                  padding=(0, 1), collapse_padding=True, show_edge=False,
+                  caption="t_step in s; rise, settle, dead (time) in ms; OS (overshoot) and SSE"
+                  " (steady-state error) in %; wn in rad/s")
+    for name in ("#", "t_step", "dir", "amp", "rise", "OS", "settle", "SSE", "zeta", "wn",
+                 "dead", "R^2"):
+        table.add_column(name, justify="right", no_wrap=True)
     for r in results:
         m, f = r.metrics, r.model
-        settle = _ms(m.settling_time) if m.settled else "not settled"
         table.add_row(
-            str(r.index), f"{m.t_step:.4f}", m.direction, _num(m.amplitude),
-            _ms(m.rise_time), _ms(m.peak_time), f"{m.overshoot_pct:.2f}", settle,
-            _num(m.steady_state_error_pct, ".2f"), _num(m.iae),
-            _num(f.zeta if f else None, ".3f"), _num(f.wn if f else None, ".4g"),
-            _ms(f.dead_time if f else None), _num(f.fit_r2 if f else None, ".4f"))
+            str(r.index), f"{m.t_step:.3f}", m.direction, _num(m.amplitude, "+.4g"),
+            _ms(m.rise_time), f"{m.overshoot_pct:.1f}",
+            _ms(m.settling_time, ".0f") if m.settled else "no",
+            _num(m.steady_state_error_pct, ".2f"), _num(f.zeta if f else None, ".3f"),
+            _num(f.wn if f else None, ".1f"), _ms(f.dead_time if f else None),
+            _num(f.fit_r2 if f else None, ".3f"))
     console.print(table)
     for r in results:
         for w in r.warnings:
