@@ -1,6 +1,6 @@
 """Recording a live session: samples to CSV (the recording format), bytes to a raw capture.
 
-Both files are flushed to the operating system at least once a second (and at
+Both files are flushed to the operating system every half second (and at
 every state change and on close), so a session killed outright loses at most
 its last second and leaves a file that ``livestep analyze`` reads. A device
 restart is marked by a ``# segment: N`` line, which the text decoder honours
@@ -44,7 +44,7 @@ class Recorder(Sink):
     fix the columns: ``t``, ``setpoint`` if present, ``feedback``, extras)."""
 
     def __init__(self, path: Path, *, metadata: dict[str, str] | Callable[[], dict[str, str]],
-                 raw_path: Path | None = None, flush_interval: float = 1.0) -> None:
+                 raw_path: Path | None = None, flush_interval: float = 0.5) -> None:
         self.path = unique_path(Path(path))
         self.raw_path = unique_path(Path(raw_path)) if raw_path is not None else None
         self.flush_interval = flush_interval
