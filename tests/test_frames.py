@@ -1,7 +1,7 @@
 """livestep.decode.frames.FrameDecoder against an independent encoder and the C emitter.
 
 References outside the package: frames are built by the encoder in this file, a
-direct transcription of the COBS algorithm as published (S. Cheshire and M. Baker,
+direct implementation of the COBS algorithm as published (S. Cheshire and M. Baker,
 "Consistent Overhead Byte Stuffing", IEEE/ACM Transactions on Networking 7(2), 1999),
 with Python's ``binascii.crc_hqx(data, 0xFFFF)`` as CRC-16/CCITT-FALSE (checked against
 the catalogued check value 0x29B1 for b"123456789"), and ``struct`` for the little-endian
