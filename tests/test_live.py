@@ -166,3 +166,36 @@ def test_second_session_on_a_busy_port_fails_cleanly(tmp_path):
 def test_missing_port_exit_status():
     result = run_cli("live", "/dev/ttyLIVESTEP_NONE")
     assert result.returncode == 2 and "no such port" in result.stderr
+
+
+def test_binary_frames_from_the_c_emitter_live(tmp_path):
+    """The firmware example (C, compiled here) streams frames through a pty; the live
+    path detects the binary format and measures its one step. Reference: the closed-form
+    overshoot of its plant, zeta 0.6 and wn 50 rad/s, %OS = 100 exp(-zeta pi /
+    sqrt(1 - zeta^2)) (Ogata)."""
+    import math
+    import shutil
+
+    cc = shutil.which("cc") or shutil.which("gcc")
+    if cc is None:
+        pytest.skip("no C compiler")
+    exe = tmp_path / "example"
+    subprocess.run([cc, "-std=c99", "-O2", "-o", str(exe), str(ROOT / "tools/firmware/example.c"),
+                    f"-I{ROOT / 'tools/firmware'}"], check=True)
+    frames = subprocess.run([str(exe), "1500"], check=True, capture_output=True).stdout
+    dev = Pty()
+    try:
+        proc = start_live(dev.path, "--record", str(tmp_path / "b.csv"), "--json-lines",
+                          "--channels", "setpoint,feedback,current")
+        write_paced(dev, frames, rate_bytes=20_000)
+        time.sleep(0.5)
+        out, err = stop(proc)
+    finally:
+        dev.close()
+    steps = [json.loads(line) for line in out.splitlines() if line.startswith("{")]
+    assert len(steps) == 1, err
+    os_pct = 100 * math.exp(-0.6 * math.pi / math.sqrt(1 - 0.36))
+    assert steps[0]["overshoot_pct"] == pytest.approx(os_pct, abs=0.3)
+    assert steps[0]["model"]["zeta"] == pytest.approx(0.6, rel=0.03)
+    assert steps[0]["model"]["wn"] == pytest.approx(50.0, rel=0.03)
+    assert "current" in (tmp_path / "b.csv").read_text().splitlines()[4]
