@@ -199,3 +199,15 @@ def test_binary_frames_from_the_c_emitter_live(tmp_path):
     assert steps[0]["model"]["zeta"] == pytest.approx(0.6, rel=0.03)
     assert steps[0]["model"]["wn"] == pytest.approx(50.0, rel=0.03)
     assert "current" in (tmp_path / "b.csv").read_text().splitlines()[4]
+
+
+def test_stream_without_the_time_column_is_a_clear_error(tmp_path):
+    dev = Pty()
+    try:
+        proc = start_live(dev.path, "--record", str(tmp_path / "c.csv"))
+        dev.write(b"time,cmd,pos\n" + b"".join(b"%d,0,0\n" % k for k in range(40)))
+        _, err = proc.communicate(timeout=30)
+    finally:
+        dev.close()
+    assert proc.returncode == 2
+    assert "no time column 't'" in err and "Traceback" not in err
