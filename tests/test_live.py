@@ -76,6 +76,20 @@ def stop(proc: subprocess.Popen) -> tuple[str, str]:
     return out, err
 
 
+def live_steps(data: bytes, rate_bytes: float, *args: str) -> tuple[list[dict], str, str]:
+    """Run ``livestep live --json-lines`` on a fresh pty, write ``data`` into it, stop it:
+    the steps it printed, its stderr and the port path."""
+    dev = Pty()
+    try:
+        proc = start_live(dev.path, "--json-lines", *args)
+        write_paced(dev, data, rate_bytes=rate_bytes)
+        time.sleep(1.0)
+        out, err = stop(proc)
+    finally:
+        dev.close()
+    return [json.loads(line) for line in out.splitlines() if line.startswith("{")], err, dev.path
+
+
 def steps_of(doc_lines: list[dict]) -> list[tuple]:
     keys = ("t_step", "direction", "rise_time", "overshoot_pct", "settling_time", "settled")
     return [tuple(s[k] for k in keys) for s in doc_lines]
@@ -103,16 +117,8 @@ def run_cli(*args: str) -> subprocess.CompletedProcess:
 def test_live_record_then_replay_gives_the_same_steps(tmp_path, restart):
     levels = [0.0, 1.0, -1.0, 0.5, 2.0]
     data = device_lines(levels, restart_at=int(2.2 * 0.8 * RATE) if restart else None)
-    dev = Pty()
     rec = tmp_path / "session.csv"
-    try:
-        proc = start_live(dev.path, "--record", str(rec), "--json-lines")
-        write_paced(dev, data, rate_bytes=400_000)
-        time.sleep(1.0)
-        out, err = stop(proc)
-    finally:
-        dev.close()
-    live = [json.loads(line) for line in out.splitlines() if line.startswith("{")]
+    live, err, port = live_steps(data, 400_000, "--record", str(rec))
     assert len(live) == len(levels) - 1, err
     # The restart (inside the third hold) cuts the second step's window short.
     assert [s["window_end"] for s in live].count("device restart") == (1 if restart else 0)
@@ -124,7 +130,7 @@ def test_live_record_then_replay_gives_the_same_steps(tmp_path, restart):
         assert offline.returncode == 0, offline.stderr
         assert close_enough(steps_of(json.loads(offline.stdout)["steps"]), steps_of(live))
     text = rec.read_text()
-    assert "# source: " + dev.path in text and "# livestep: " in text and "# start: " in text
+    assert "# source: " + port in text and "# livestep: " in text and "# start: " in text
     assert ("# segment: 1" in text) == restart
 
 
@@ -183,16 +189,8 @@ def test_binary_frames_from_the_c_emitter_live(tmp_path):
     subprocess.run([cc, "-std=c99", "-O2", "-o", str(exe), str(ROOT / "tools/firmware/example.c"),
                     f"-I{ROOT / 'tools/firmware'}"], check=True)
     frames = subprocess.run([str(exe), "1500"], check=True, capture_output=True).stdout
-    dev = Pty()
-    try:
-        proc = start_live(dev.path, "--record", str(tmp_path / "b.csv"), "--json-lines",
-                          "--channels", "setpoint,feedback,current")
-        write_paced(dev, frames, rate_bytes=20_000)
-        time.sleep(0.5)
-        out, err = stop(proc)
-    finally:
-        dev.close()
-    steps = [json.loads(line) for line in out.splitlines() if line.startswith("{")]
+    steps, err, _ = live_steps(frames, 20_000, "--record", str(tmp_path / "b.csv"),
+                               "--channels", "setpoint,feedback,current")
     assert len(steps) == 1, err
     os_pct = 100 * math.exp(-0.6 * math.pi / math.sqrt(1 - 0.36))
     assert steps[0]["overshoot_pct"] == pytest.approx(os_pct, abs=0.3)
