@@ -46,7 +46,7 @@ def analyze_window(w: StepWindow, settings: AnalysisSettings = AnalysisSettings(
     """Measure and model one detected step."""
     m = measure_step(w.t, w.feedback, w.i_step, setpoint=w.setpoint,
                      setpoint_before=w.setpoint_before, setpoint_after=w.setpoint_after,
-                     pre_start=w.pre_start, settings=settings.measure)
+                     settings=settings.measure)
     warnings = list(m.warnings)
     model = fit_second_order(w.t, w.feedback, m) if settings.fit_model else None
     if settings.fit_model and model is None:

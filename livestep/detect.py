@@ -64,15 +64,14 @@ class DetectorSettings:
 @dataclass(frozen=True, kw_only=True, eq=False)
 class StepWindow:
     """Samples of one step: ``t`` (seconds), ``feedback``, ``setpoint`` (``None`` in
-    feedback mode) from ``pre_start`` (start of the stretch used for the initial
-    level) to the end of the window; ``i_step`` indexes the step instant."""
+    feedback mode) from the start of the stretch used for the initial level to the end
+    of the window; ``i_step`` indexes the step instant."""
 
     index: int
     t: FloatArray
     feedback: FloatArray
     setpoint: FloatArray | None
     i_step: int
-    pre_start: int
     setpoint_before: float | None
     setpoint_after: float | None
     end_reason: str
@@ -211,7 +210,7 @@ class StepDetector:
                 return
             sp = self._buf.col(2, a - 1, last + 1)
             before, after = float(sp[0]), float(sp[-1])
-            pre_start = max(self._hold_start + (a - self._hold_start) // 2, a - s.pre_samples)
+            pre_start = self._pre_start(a)
             threshold = s.min_step
             if threshold is None:
                 threshold = 10.0 * noise_sigma(self._buf.col(1, pre_start, a))
@@ -254,8 +253,7 @@ class StepDetector:
             if self._open is not None:
                 self._close(i, "next step", out)
             if s.min_step is None or abs(jump) >= s.min_step:
-                pre_start = max(self._hold_start + (i - self._hold_start) // 2, i - s.pre_samples)
-                self._open = _Open(i, pre_start, None, None)
+                self._open = _Open(i, self._pre_start(i), None, None)
             self._level = None
             self._moved_at = i
             self._scan = i + h
@@ -295,6 +293,12 @@ class StepDetector:
         return False
 
     # -- shared -----------------------------------------------------------------
+    def _pre_start(self, change: int) -> int:
+        """Start of the stretch before a change at ``change`` that gives the initial level
+        and the noise: the later half of the hold, at most ``pre_samples``."""
+        return max(self._hold_start + (change - self._hold_start) // 2,
+                   change - self.settings.pre_samples)
+
     def _check_max_window(self, out: list[StepWindow], upto: int) -> None:
         op = self._open
         if op is None:
@@ -321,7 +325,6 @@ class StepDetector:
             feedback=b.col(1, op.pre_start, stop).copy(),
             setpoint=b.col(2, op.pre_start, stop).copy() if self.has_setpoint else None,
             i_step=op.i_step - op.pre_start,
-            pre_start=0,
             setpoint_before=op.sp_before,
             setpoint_after=op.sp_after,
             end_reason=reason,

@@ -237,9 +237,8 @@ def measure_step(
     if setpoint_before is not None and setpoint_after is not None:
         sp_change = setpoint_after - setpoint_before
 
-    # Uniform grid aligned on the step instant, covering the window and a little before.
-    n_before = i_step - pre_start
-    t0 = t[i_step - n_before] if n_before > 0 else t_step
+    # Uniform grid aligned on the step instant, covering the stretch before and the window.
+    t0 = t[pre_start]
     if dt > 0:
         k0 = -int(math.floor((t_step - t0) / dt))
         k1 = int(math.floor(span / dt))
@@ -278,7 +277,8 @@ def measure_step(
                 yg = _box(yg, k)[g0 % k::k]
                 tg = tg[g0 % k::k]
                 g0 //= k
-            ys = _smooth(yg, _odd(window / max(k, 1), 5) if window >= 5 else 1)
+            if window >= 5:
+                ys = _smooth(yg, _odd(window / k, 5))
     for _ in range(3):
         amp = final - initial
         if amp == 0.0 or abs(amp) < 5.0 * sigma:
