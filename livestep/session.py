@@ -10,6 +10,7 @@ from __future__ import annotations
 import gzip
 import time
 from collections.abc import Callable, Iterable, Sequence
+from dataclasses import replace
 from pathlib import Path
 from typing import Protocol
 
@@ -169,21 +170,13 @@ class Session:
         return out
 
     def _publish(self, results: list[StepResult]) -> list[StepResult]:
-        for r in results:
-            r = _renumber(r, len(self.results))
-            self.results.append(r)
+        """Number the steps across segments (each has its own detector) and hand them on."""
+        out = [replace(r, index=len(self.results) + k) for k, r in enumerate(results)]
+        self.results += out
+        for r in out:
             for s in self.sinks:
                 s.on_step(r)
-        return self.results[len(self.results) - len(results):]
-
-
-def _renumber(r: StepResult, index: int) -> StepResult:
-    """Number steps across segments (each segment has its own detector)."""
-    if r.index == index:
-        return r
-    from dataclasses import replace
-
-    return replace(r, index=index)
+        return out
 
 
 def replay_file(path: Path, session: Session, *, speed: float | None = 1.0,
