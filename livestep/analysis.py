@@ -28,6 +28,7 @@ class AnalysisSettings:
     detect: DetectorSettings = field(default_factory=DetectorSettings)
     measure: MeasureSettings = field(default_factory=MeasureSettings)
     fit_model: bool = True
+    keep_windows: bool = False  # attach each step's samples to its result (plots)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -40,6 +41,8 @@ class StepResult:
     model: ModelFit | None
     end_reason: str
     warnings: tuple[str, ...]
+    #: The step's samples when ``AnalysisSettings.keep_windows`` is set (for plots).
+    window: StepWindow | None = field(default=None, compare=False, repr=False)
 
 
 def analyze_window(w: StepWindow, settings: AnalysisSettings = AnalysisSettings()) -> StepResult:
@@ -57,7 +60,7 @@ def analyze_window(w: StepWindow, settings: AnalysisSettings = AnalysisSettings(
         warnings.append("the window was cut at the longest window setting")
     return StepResult(index=w.index, metrics=m, estimate=closed_form_estimate(
         m, settings.measure.settling_band), model=model, end_reason=w.end_reason,
-        warnings=tuple(warnings))
+        warnings=tuple(warnings), window=w if settings.keep_windows else None)
 
 
 class StepAnalyzer:

@@ -10,7 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import signal
 
-from livestep.analysis import analyze_chunks
+from livestep.analysis import AnalysisSettings, analyze_chunks
 from livestep.samples import SampleChunk
 
 RATE, ZETA, WN = 2000.0, 0.45, 35.0
@@ -99,3 +99,18 @@ def test_invariances(reference, transform):
             assert mb.amplitude == pytest.approx(-ma.amplitude)
         if transform == "shift":
             assert mb.t_step == pytest.approx(ma.t_step + 1000.0)
+
+
+def test_kept_windows_hold_each_steps_samples(reference):
+    (t, sp, y), plain = reference
+    kept = list(analyze_chunks([SampleChunk(t=t, setpoint=sp, feedback=y)],
+                               AnalysisSettings(keep_windows=True)))
+    assert kept == plain  # the window does not take part in equality
+    assert all(r.window is None for r in plain)
+    for r in kept:
+        w = r.window
+        assert w is not None and w.index == r.index
+        assert w.t_step == pytest.approx(r.metrics.t_step)
+        # The window's samples are the stream's own samples at those times.
+        i = np.searchsorted(t, w.t)
+        assert np.array_equal(y[i], w.feedback) and np.array_equal(sp[i], w.setpoint)
