@@ -41,6 +41,8 @@ class StepResult:
     model: ModelFit | None
     end_reason: str
     warnings: tuple[str, ...]
+    #: Notes active at the step instant, as (name, value) pairs (e.g. the gain set in use).
+    tags: tuple[tuple[str, str], ...] = ()
     #: The step's samples when ``AnalysisSettings.keep_windows`` is set (for plots).
     window: StepWindow | None = field(default=None, compare=False, repr=False)
 
