@@ -117,6 +117,35 @@ def _decoder(args: argparse.Namespace) -> Decoder:
                         channels=tuple(args.channels.split(",")))
 
 
+def _add_port_options(p: argparse.ArgumentParser) -> None:
+    sp = p.add_argument_group("serial port")
+    sp.add_argument("--baud", type=int, default=115200, help="baud rate (default 115200)")
+    sp.add_argument("--parity", choices=("N", "E", "O"), default="N", help="parity (default N)")
+    sp.add_argument("--shared", action="store_true",
+                    help="do not lock the port against other programs")
+    sp.add_argument("--dtr", choices=("on", "off"), help="drive DTR on open (may reset boards)")
+    sp.add_argument("--rts", choices=("on", "off"), help="drive RTS on open")
+
+
+def _add_record_options(p: argparse.ArgumentParser, replay_note: bool = False) -> None:
+    rec = p.add_argument_group("recording")
+    rec.add_argument("--record", metavar="FILE",
+                     help="recording file (default livestep-YYYYmmdd-HHMMSS.csv; never"
+                     " overwritten)" + ("; a replay records only when given" if replay_note
+                                         else ""))
+    rec.add_argument("--no-record", action="store_true", help="do not record the samples")
+    rec.add_argument("--raw", metavar="FILE", help="also capture the raw bytes to FILE")
+
+
+def _port_settings(args: argparse.Namespace, url: str):
+    from livestep.sources.serial_port import PortSettings
+
+    return PortSettings(url=url, baudrate=args.baud, parity=args.parity,
+                        exclusive=not args.shared,
+                        dtr=None if args.dtr is None else args.dtr == "on",
+                        rts=None if args.rts is None else args.rts == "on")
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = _Parser(prog="livestep", description="Find and measure setpoint step tests in "
                 "closed-loop controller data.")
@@ -145,19 +174,8 @@ def build_parser() -> argparse.ArgumentParser:
                           " recording everything")
     live.add_argument("port", help="device path (/dev/ttyUSB0, /dev/serial/by-id/...) or"
                       " pyserial URL (socket://host:port, rfc2217://host:port, loop://)")
-    sp = live.add_argument_group("serial port")
-    sp.add_argument("--baud", type=int, default=115200, help="baud rate (default 115200)")
-    sp.add_argument("--parity", choices=("N", "E", "O"), default="N", help="parity (default N)")
-    sp.add_argument("--shared", action="store_true",
-                    help="do not lock the port against other programs")
-    sp.add_argument("--dtr", choices=("on", "off"), help="drive DTR on open (may reset boards)")
-    sp.add_argument("--rts", choices=("on", "off"), help="drive RTS on open")
-    rec = live.add_argument_group("recording")
-    rec.add_argument("--record", metavar="FILE",
-                     help="recording file (default livestep-YYYYmmdd-HHMMSS.csv; never"
-                     " overwritten)")
-    rec.add_argument("--no-record", action="store_true", help="do not record the samples")
-    rec.add_argument("--raw", metavar="FILE", help="also capture the raw bytes to FILE")
+    _add_port_options(live)
+    _add_record_options(live)
     live.add_argument("--duration", type=_positive, metavar="S",
                       help="stop after S seconds (default: run until Ctrl-C)")
     live.add_argument("--json-lines", action="store_true",
@@ -177,6 +195,25 @@ def build_parser() -> argparse.ArgumentParser:
                     help="print each step as one JSON object per line")
     _add_stream_options(rp)
     _add_analysis_options(rp)
+
+    w = sub.add_parser("watch", help="the live view: steps and verdicts as they happen, from a"
+                       " serial port or a recording (terminal UI, or --headless)")
+    w.add_argument("source", help="an existing file is replayed (recording or raw capture);"
+                   " anything else is a serial port path or pyserial URL")
+    w.add_argument("--headless", action="store_true",
+                   help="no UI: one JSON line per finished step on stdout, then a summary")
+    w.add_argument("--profile", metavar="FILE", help="tolerance profile (TOML): a verdict per"
+                   " step")
+    w.add_argument("--duration", type=_positive, metavar="S", help="stop after S seconds")
+    w.add_argument("--steps", type=int, metavar="N", help="stop after N steps")
+    rpace = w.add_argument_group("replay").add_mutually_exclusive_group()
+    rpace.add_argument("--speed", type=_positive, default=1.0,
+                       help="replay speed factor against real time (default 1)")
+    rpace.add_argument("--fast", action="store_true", help="replay as fast as possible")
+    _add_port_options(w)
+    _add_record_options(w, replay_note=True)
+    _add_stream_options(w)
+    _add_analysis_options(w)
 
     sub.add_parser("ports", help="list the serial ports present")
     return p
@@ -215,12 +252,7 @@ def _analyze(args: argparse.Namespace) -> int:
 
 
 def _live(args: argparse.Namespace) -> int:
-    from livestep.sources.serial_port import PortSettings
-
-    port = PortSettings(url=args.port, baudrate=args.baud, parity=args.parity,
-                        exclusive=not args.shared,
-                        dtr=None if args.dtr is None else args.dtr == "on",
-                        rts=None if args.rts is None else args.rts == "on")
+    port = _port_settings(args, args.port)
     if args.rate:
         print(f"livestep: no device time: samples stamped from their count at {args.rate:g} Hz"
               " (host arrival times come in bursts and are not used)", file=sys.stderr)
@@ -236,6 +268,40 @@ def _replay(args: argparse.Namespace) -> int:
     return run_replay(Path(args.file), _decoder(args), _analysis_settings(args),
                       speed=None if args.fast else args.speed, json_doc=args.json,
                       json_lines=args.json_lines)
+
+
+def _watch(args: argparse.Namespace) -> int:
+    from livestep.live import metadata_for, run_headless
+    from livestep.watch import ReplaySource, Watch
+
+    if args.steps is not None and args.steps < 1:
+        raise InputError("--steps: expected a positive whole number")
+    settings = _analysis_settings(args)
+    profile = None
+    if args.profile:
+        from livestep.profile import load_profile
+
+        profile = load_profile(args.profile)
+    decoder = _decoder(args)
+    replay = Path(args.source).is_file()
+    if replay:
+        source = ReplaySource(Path(args.source), speed=None if args.fast else args.speed)
+    else:
+        from livestep.sources.serial_port import SerialReader
+
+        source = SerialReader(_port_settings(args, args.source))
+    record = None
+    if not args.no_record and (args.record or not replay):
+        record = Path(args.record or time.strftime("livestep-%Y%m%d-%H%M%S.csv"))
+    watch = Watch(source, decoder, settings, source_name=args.source, record=record,
+                  raw=Path(args.raw) if args.raw else None,
+                  metadata=metadata_for(args.source, decoder), profile=profile,
+                  duration=args.duration, max_steps=args.steps)
+    if args.headless:
+        return run_headless(watch, sys.stdout)
+    from livestep.tui.app import run_app
+
+    return run_app(watch)
 
 
 def _ports(args: argparse.Namespace) -> int:
@@ -260,7 +326,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit status."""
     try:
         args = build_parser().parse_args(argv)
-        command = {"analyze": _analyze, "live": _live, "replay": _replay, "ports": _ports}
+        command = {"analyze": _analyze, "live": _live, "replay": _replay, "watch": _watch,
+                   "ports": _ports}
         return command[args.command](args)
     except InputError as exc:
         print(f"livestep: error: {exc}", file=sys.stderr)

@@ -6,9 +6,12 @@ or bad options, 130 interrupted.
 
 from __future__ import annotations
 
-__all__ = ["EXIT_BAD_INPUT", "EXIT_INTERRUPTED", "EXIT_OK", "InputError"]
+__all__ = ["EXIT_BAD_INPUT", "EXIT_INTERNAL", "EXIT_INTERRUPTED", "EXIT_OK", "EXIT_STEP_FAILED",
+           "InputError"]
 
 EXIT_OK = 0
+EXIT_INTERNAL = 1
+EXIT_STEP_FAILED = 1  # a step failed its profile
 EXIT_BAD_INPUT = 2
 EXIT_INTERRUPTED = 130
 

@@ -1,31 +1,34 @@
-"""Running a live session from a serial port, and replaying a recording, on the console.
+"""Running a live session from a serial port, a headless watch, and a replay, on the console.
 
-The serial reader thread fills a queue; this loop (the main thread) decodes,
-records and analyses. Ctrl-C or SIGTERM ends the session cleanly: everything
-received is decoded, recorded and flushed before the process exits.
+The source's reader thread fills a queue and the analysis thread (see
+:mod:`livestep.watch`) decodes, records and analyses. Ctrl-C or SIGTERM ends the
+session cleanly: everything received is decoded, recorded and flushed before the
+process exits.
 """
 
 from __future__ import annotations
 
 import contextlib
-import queue
+import json
 import signal
 import sys
 import threading
-import time
+from collections import Counter
 from pathlib import Path
+from typing import IO
 
 from rich.console import Console
 
 from livestep.analysis import AnalysisSettings
-from livestep.errors import EXIT_OK, InputError
+from livestep.errors import EXIT_BAD_INPUT, EXIT_INTERNAL, EXIT_OK, EXIT_STEP_FAILED, InputError
 from livestep.session import AutoDecoder, Decoder, Session, replay_file
 from livestep.sinks.base import Sink
 from livestep.sinks.console import ConsoleSink, JsonLinesSink, counters_table
-from livestep.sinks.recorder import Recorder
 from livestep.sources.serial_port import PortSettings, SerialReader
+from livestep.watch import StepEntry, Watch, step_line_record
 
-__all__ = ["describe_decoder", "run_live", "run_replay"]
+__all__ = ["describe_decoder", "metadata_for", "run_headless", "run_live", "run_replay",
+           "run_until_done"]
 
 
 def describe_decoder(decoder: Decoder) -> str:
@@ -39,6 +42,11 @@ def describe_decoder(decoder: Decoder) -> str:
         return f"{describe(inner)}; time {inner.timebase.settings.describe()}"
     channels = ",".join(getattr(inner, "channels", ()))
     return f"binary frames (COBS, CRC-16/CCITT-FALSE), channels {channels}"
+
+
+def metadata_for(source: str, decoder: Decoder):
+    """The recording's metadata, asked for when its header is written."""
+    return lambda: {"source": source, "decoder": describe_decoder(decoder)}
 
 
 def _step_sink(json_lines: bool) -> Sink:
@@ -58,65 +66,87 @@ def _stop_on_sigterm(stop: threading.Event):
         signal.signal(signal.SIGTERM, previous)
 
 
+def run_until_done(watch: Watch) -> None:
+    """Start ``watch`` and wait for its end; Ctrl-C or SIGTERM end it cleanly."""
+    stop = threading.Event()
+    watch.start()
+    try:
+        with _stop_on_sigterm(stop):
+            while not watch.wait(0.2):
+                if stop.is_set():
+                    watch.stop()
+    except KeyboardInterrupt:
+        pass
+    finally:
+        watch.stop()
+        while not watch.wait(0.5):
+            pass
+
+
+def exit_status(error: str | None) -> int:
+    """The exit status of a session that ended with ``error`` (``None``: success)."""
+    if error is None:
+        return EXIT_OK
+    return EXIT_INTERNAL if error.startswith("internal error") else EXIT_BAD_INPUT
+
+
+class _Announce(Sink):
+    """Says where the recording goes, once the port is open."""
+
+    def __init__(self, watch: Watch, console: Console) -> None:
+        self.watch, self.console, self.said = watch, console, False
+
+    def on_state(self, state: str) -> None:
+        if not self.said and self.watch.recorder is not None:
+            self.console.print(f"recording to {self.watch.recorder.path}")
+        self.said = True
+
+
 def run_live(port: PortSettings, decoder: Decoder, settings: AnalysisSettings, *,
              record: Path | None, raw: Path | None = None, duration: float | None = None,
              json_lines: bool = False) -> int:
     """Read, decode, record and analyse until stopped; returns the exit status."""
-    status_console = Console(stderr=True, highlight=False)
-    reader = SerialReader(port)
-    reader.start()  # a port that cannot be opened ends here, before any file is made
-    sinks = [_step_sink(json_lines)]
-    recorder = None
-    if record is not None:
-        recorder = Recorder(record, raw_path=raw, metadata=lambda: {
-            "source": port.url, "decoder": describe_decoder(decoder)})
-        sinks.append(recorder)
-        status_console.print(f"recording to {recorder.path}")
-
-    session = Session(decoder, settings, sinks)
-    stop = threading.Event()
-    status = EXIT_OK
-    end = time.monotonic() + duration if duration else None
-    try:
-        with _stop_on_sigterm(stop):
-            while not stop.is_set() and (end is None or time.monotonic() < end):
-                try:
-                    kind, payload = reader.events.get(timeout=0.2)
-                except queue.Empty:
-                    session.tick()
-                    continue
-                _handle(session, reader, kind, payload)
-    except KeyboardInterrupt:
-        pass
-    except InputError as exc:
-        status_console.print(f"livestep: error: {exc}")
-        status = exc.exit_status
-    finally:
-        reader.stop()
-        with contextlib.suppress(InputError):
-            while True:
-                try:
-                    kind, payload = reader.events.get_nowait()
-                except queue.Empty:
-                    break
-                _handle(session, reader, kind, payload)
-        session.close()
-        status_console.print(counters_table(session.counters))
-        if recorder is not None and recorder.rows:
-            status_console.print(f"recorded {recorder.rows} samples to {recorder.path}")
-        elif recorder is not None:
-            status_console.print("no samples received: no recording written")
-    return status
+    console = Console(stderr=True, highlight=False)
+    watch = Watch(SerialReader(port), decoder, settings, source_name=port.url, record=record,
+                  raw=raw, metadata=metadata_for(port.url, decoder),
+                  sinks=[_step_sink(json_lines)], duration=duration)
+    watch.session.sinks.insert(0, _Announce(watch, console))
+    run_until_done(watch)
+    error = watch.snapshot().error
+    if error:
+        console.print(f"livestep: error: {error}")
+    console.print(counters_table(watch.session.counters))
+    recorder = watch.recorder
+    if recorder is not None and recorder.rows:
+        console.print(f"recorded {recorder.rows} samples to {recorder.path}")
+    elif recorder is not None:
+        console.print("no samples received: no recording written")
+    return exit_status(error)
 
 
-def _handle(session: Session, reader: SerialReader, kind: str, payload: object) -> None:
-    if kind == "data":
-        session.feed(payload)  # type: ignore[arg-type]
-    else:
-        session.counters.reconnects = reader.reconnects
-        if reader.dropped_bytes:
-            session.counters.bad["queue overflow (bytes)"] = reader.dropped_bytes
-        session.state(str(payload))
+def run_headless(watch: Watch, out: IO[str]) -> int:
+    """``watch --headless``: one JSON line per finished step on ``out`` as soon as it is
+    measured, then one ``{"summary": ...}`` line. Exit status: 2 bad input, 1 when a step
+    failed its profile (or an internal error), else 0."""
+
+    def on_step(entry: StepEntry) -> None:
+        out.write(json.dumps(step_line_record(entry), allow_nan=False) + "\n")
+        out.flush()
+
+    watch.on_step = on_step
+    run_until_done(watch)
+    snap = watch.snapshot()
+    verdicts = Counter(e.verdict.verdict for e in snap.steps if e.verdict is not None)
+    summary = {"source": snap.source, "steps": len(snap.steps), "verdicts": dict(verdicts),
+               "profile": snap.profile, "samples": snap.counters["samples"],
+               "counters": snap.counters, "recording": snap.recording,
+               "results_log": snap.results_log, "error": snap.error}
+    out.write(json.dumps({"summary": summary}, allow_nan=False) + "\n")
+    out.flush()
+    if snap.error:
+        print(f"livestep: error: {snap.error}", file=sys.stderr)
+        return exit_status(snap.error)
+    return EXIT_STEP_FAILED if verdicts.get("fail") else EXIT_OK
 
 
 def run_replay(path: Path, decoder: Decoder, settings: AnalysisSettings, *,

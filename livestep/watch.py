@@ -1,0 +1,515 @@
+"""The threaded live pipeline behind ``livestep watch`` (headless or with the terminal UI)
+and ``livestep live``.
+
+Two threads besides the caller's: the source's reader thread (a serial port, or a
+recording played back at its own pace) only moves bytes into a queue; the analysis
+thread runs the one :class:`~livestep.session.Session` (decode, record, detect,
+measure, fit, judge) and keeps a lock-protected :class:`Snapshot` that a display pulls
+at its own frame rate. Nothing is pushed per sample. Memory is bounded on an endless
+stream: the recent samples live in a fixed ring buffer and only the last
+``keep_windows`` steps keep their samples; everything else is on disk.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import gzip
+import json
+import queue
+import threading
+import time
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import IO, Any, Protocol
+
+import numpy as np
+from numpy.typing import NDArray
+
+from livestep.analysis import AnalysisSettings, StepResult
+from livestep.errors import InputError
+from livestep.samples import SampleChunk
+from livestep.session import Decoder, Session
+from livestep.sinks.base import Sink
+from livestep.sinks.recorder import Recorder
+
+__all__ = ["Note", "ReplaySource", "Samples", "Snapshot", "Source", "StepEntry", "Watch",
+           "results_log_path"]
+
+FloatArray = NDArray[np.float64]
+
+# Link states shown to the user.
+STREAMING, WAITING, DISCONNECTED = "streaming", "waiting for data", "disconnected, retrying"
+PAUSED, FINISHED, STOPPED = "replay paused", "replay finished", "stopped"
+
+
+class Source(Protocol):
+    """A byte source with a reader thread: events ``("data", bytes)`` and
+    ``("state", "connected" | "disconnected" | "paused" | "playing" | "finished")``."""
+
+    events: queue.Queue[tuple[str, object]]
+
+    def start(self) -> None: ...
+
+    def stop(self, timeout: float = 1.0) -> None: ...
+
+
+class ReplaySource:
+    """Plays a recording (or raw capture, gzip or not) in its own thread, paced by the
+    decoded sample times (``progress()``: seconds of data the session has decoded) at
+    ``speed`` x real time, or as fast as the consumer takes it (``speed=None``). The
+    queue is short and blocking: a file loses nothing by waiting."""
+
+    def __init__(self, path: Path, *, speed: float | None = 1.0, block: int = 4096,
+                 paused: bool = False) -> None:
+        if not Path(path).is_file():
+            raise InputError(f"{path}: no such file")
+        self.path = Path(path)
+        self.events: queue.Queue[tuple[str, object]] = queue.Queue(maxsize=2)
+        self.block = block if speed is not None else max(block, 1 << 16)
+        self.progress: Callable[[], float | None] = lambda: None
+        self._speed = speed
+        self._stop = threading.Event()
+        self._playing = threading.Event()
+        if not paused:
+            self._playing.set()
+        self._anchor: tuple[float, float] | None = None  # (wall clock, data time)
+        self._thread: threading.Thread | None = None
+
+    @property
+    def speed(self) -> float | None:
+        return self._speed
+
+    @property
+    def paused(self) -> bool:
+        return not self._playing.is_set()
+
+    def set_speed(self, speed: float | None) -> None:
+        """New pace from now on (``None``: as fast as possible)."""
+        self._speed = speed
+        self._anchor = None
+
+    def pause(self) -> None:
+        self._playing.clear()
+        self._put(("state", "paused"))
+
+    def resume(self) -> None:
+        self._anchor = None
+        self._playing.set()
+        self._put(("state", "playing"))
+
+    def start(self) -> None:
+        self._thread = threading.Thread(target=self._run, name="livestep-replay", daemon=True)
+        self._thread.start()
+
+    def stop(self, timeout: float = 1.0) -> None:
+        self._stop.set()
+        self._playing.set()
+        if self._thread is not None:
+            self._thread.join(timeout)
+
+    def _put(self, event: tuple[str, object]) -> bool:
+        while not self._stop.is_set():
+            try:
+                self.events.put(event, timeout=0.05)
+                return True
+            except queue.Full:
+                continue
+        return False
+
+    def _run(self) -> None:
+        with open(self.path, "rb") as raw:
+            fh: IO[bytes] = gzip.GzipFile(fileobj=raw) if raw.peek(2)[:2] == b"\x1f\x8b" else raw
+            while not self._stop.is_set():
+                self._playing.wait()
+                data = fh.read(self.block)
+                if not data:
+                    self._put(("state", "finished"))
+                    return
+                if not self._put(("data", data)):
+                    return
+                self._pace()
+
+    def _pace(self) -> None:
+        while not self._stop.is_set() and self._playing.is_set():
+            speed, done = self._speed, self.progress()
+            if speed is None or done is None:
+                return
+            now = time.monotonic()
+            if self._anchor is None:
+                self._anchor = (now, done)
+            due = (done - self._anchor[1]) / speed - (now - self._anchor[0])
+            if due <= 0:
+                return
+            self._stop.wait(min(due, 0.05))
+
+
+@dataclass(frozen=True)
+class Note:
+    """A note the user added: ``name=value`` (e.g. ``gains=B``), from device time ``t``
+    (seconds) on. It tags the steps that follow."""
+
+    name: str
+    value: str
+    t: float | None
+
+
+@dataclass(frozen=True)
+class StepEntry:
+    """One finished step as a display sees it: the result (its ``window`` set for the
+    recent steps only), the verdict (``None`` without a profile) and when it was
+    published (``time.monotonic()``)."""
+
+    result: StepResult
+    verdict: Any = None
+    published: float = 0.0
+
+
+@dataclass(frozen=True)
+class Samples:
+    """Recent samples (copies): ``t`` seconds, ``setpoint`` (``None`` without one)."""
+
+    t: FloatArray
+    feedback: FloatArray
+    setpoint: FloatArray | None
+
+
+@dataclass(frozen=True)
+class Snapshot:
+    """The state of a watch at one instant, safe to read from any thread.
+
+    ``sample_rate`` in Hz from the device time of the last samples; ``data_time``: device
+    time of the last sample, seconds; ``version`` grows with every change of the steps
+    or notes (a display redraws its tables only then)."""
+
+    source: str
+    replay: bool
+    state: str
+    counters: dict[str, Any]
+    sample_rate: float | None
+    data_time: float | None
+    recording: str | None
+    results_log: str | None
+    steps: tuple[StepEntry, ...]
+    notes: tuple[Note, ...]
+    speed: float | None
+    profile: str | None
+    version: int
+    done: bool
+    error: str | None = None
+    cpu: dict[str, float] = field(default_factory=dict)
+
+
+class _Ring:
+    """Fixed-size ring buffer of (t, setpoint, feedback) samples."""
+
+    def __init__(self, capacity: int) -> None:
+        self.data = np.full((3, capacity), np.nan)
+        self.n = 0  # samples ever written
+
+    def append(self, t: FloatArray, sp: FloatArray | None, fb: FloatArray) -> None:
+        cap = self.data.shape[1]
+        cols = [t, sp if sp is not None else np.full(t.size, np.nan), fb]
+        if t.size >= cap:
+            cols = [c[-cap:] for c in cols]
+            self.n += t.size - cap
+        k = cols[0].size
+        start = self.n % cap
+        first = min(k, cap - start)
+        for row, c in zip(self.data, cols, strict=True):
+            row[start:start + first] = c[:first]
+            row[: k - first] = c[first:]
+        self.n += k
+
+    def last(self, count: int) -> FloatArray:
+        cap = self.data.shape[1]
+        count = min(count, self.n, cap)
+        end = self.n % cap
+        idx = np.arange(end - count, end) % cap
+        return self.data[:, idx]
+
+    def since(self, t0: float) -> FloatArray:
+        cap = self.data.shape[1]
+        have = self.last(min(self.n, cap))
+        return have[:, np.searchsorted(have[0], t0):]
+
+
+def results_log_path(recording: Path) -> Path:
+    """Where the results log of a recording goes: ``NAME.steps.jsonl`` beside it."""
+    name = recording.name
+    for suffix in (".csv.gz", ".csv", ".gz"):
+        if name.endswith(suffix):
+            name = name[: -len(suffix)]
+            break
+    return recording.with_name(name + ".steps.jsonl")
+
+
+def step_line_record(entry: StepEntry) -> dict[str, Any]:
+    """The JSON line of a finished step: the ``analyze --json`` step fields, its tags and
+    its verdict (``null`` without a profile)."""
+    from livestep.report import step_record
+
+    rec = step_record(entry.result)
+    rec["tags"] = dict(entry.result.tags)
+    rec["verdict"] = verdict_record(entry.verdict)
+    return rec
+
+
+def verdict_record(verdict: Any) -> dict[str, Any] | None:
+    """A verdict as JSON: overall verdict and one entry per checked quantity."""
+    if verdict is None:
+        return None
+    return {"verdict": verdict.verdict, "checks": [
+        {"quantity": c.quantity, "value": c.value, "low": c.low, "high": c.high,
+         "margin": c.margin, "verdict": c.verdict, "reason": c.reason}
+        for c in verdict.checks]}
+
+
+class _Collector(Sink):
+    """The watch's own sink: fills the ring buffer and the step history."""
+
+    def __init__(self, watch: Watch) -> None:
+        self.watch = watch
+
+    def on_chunk(self, chunk: SampleChunk) -> None:
+        w = self.watch
+        with w._lock:
+            w._ring.append(chunk.t, chunk.setpoint, chunk.feedback)
+            w._data_time = float(chunk.t[-1])
+            w._last_data = time.monotonic()
+
+    def on_step(self, result: StepResult) -> None:
+        self.watch._add_step(result)
+
+
+class Watch:
+    """A live session in threads. ``start()``, then read :meth:`snapshot` and
+    :meth:`samples` from any thread; :meth:`stop` (or the source ending, ``duration``
+    seconds, ``max_steps`` steps) ends it; :meth:`wait` joins it.
+
+    ``on_step(entry)`` is called on the analysis thread for every finished step, after
+    the results log has it (headless output). ``profile``: a tolerance profile whose
+    verdict every step gets, or ``None``."""
+
+    def __init__(self, source: Source, decoder: Decoder, settings: AnalysisSettings, *,
+                 source_name: str, record: Path | None = None, raw: Path | None = None,
+                 metadata: Callable[[], dict[str, str]] | None = None,
+                 profile: Any = None, sinks: Sequence[Sink] = (),
+                 on_step: Callable[[StepEntry], None] | None = None,
+                 duration: float | None = None, max_steps: int | None = None,
+                 keep_windows: int = 20, ring_samples: int = 1 << 19) -> None:
+        self.source = source
+        self.source_name = source_name
+        self.replay = isinstance(source, ReplaySource)
+        self.profile = profile
+        self.on_step = on_step
+        self.duration = duration
+        self.max_steps = max_steps
+        self.keep_windows = keep_windows
+        self._lock = threading.Lock()
+        self._ring = _Ring(ring_samples)
+        self._entries: list[StepEntry] = []
+        self._notes: list[Note] = []
+        self._data_time: float | None = None
+        self._last_data: float | None = None
+        self._version = 0
+        self._state = WAITING
+        self._error: str | None = None
+        self._stop = threading.Event()
+        self._done = threading.Event()
+        self._thread: threading.Thread | None = None
+        self._cpu: dict[str, float] = {}
+        self.recorder: Recorder | None = None
+        self.results_log: Path | None = None
+        self._log: IO[str] | None = None
+        self._record = (record, raw, metadata or (lambda: {"source": source_name}))
+        self.session = Session(decoder, replace(settings, keep_windows=True),
+                               [_Collector(self), *sinks])
+        if isinstance(source, ReplaySource):
+            source.progress = self._progress
+
+    # -- control (any thread) ---------------------------------------------------
+    def start(self) -> None:
+        """Start the source (a port that cannot be opened raises here) and the analysis."""
+        self.source.start()  # a port that cannot be opened ends here, before any file
+        record, raw, metadata = self._record
+        if record is not None:
+            self.recorder = Recorder(record, raw_path=raw, metadata=metadata)
+            self.results_log = results_log_path(self.recorder.path)
+            self.session.sinks.append(self.recorder)
+        self._started = time.monotonic()
+        self._thread = threading.Thread(target=self._run, name="livestep-analysis",
+                                        daemon=True)
+        self._thread.start()
+
+    def stop(self) -> None:
+        """Ask the session to end; everything received is still decoded and recorded."""
+        self._stop.set()
+
+    def wait(self, timeout: float | None = None) -> bool:
+        """Wait for the end of the session; ``True`` once it has ended."""
+        return self._done.wait(timeout)
+
+    @property
+    def done(self) -> bool:
+        return self._done.is_set()
+
+    def add_note(self, name: str, value: str) -> Note:
+        """Tag the steps from now on (device time of the last sample) with ``name=value``;
+        written to the recording as a ``# note:`` line."""
+        name, value = name.strip(), value.strip()
+        if not name:
+            raise InputError("a note needs a name: NAME=VALUE or just a word")
+        with self._lock:
+            note = Note(name, value, self._data_time)
+            self._notes.append(note)
+            self._version += 1
+        add = getattr(self.session, "add_note", None)
+        if callable(add):  # the session's own tag timeline, where there is one
+            add(name, value, t=note.t)
+        elif self.recorder is not None:
+            self.recorder.note(f"note: {name}={value}")
+        return note
+
+    def snapshot(self) -> Snapshot:
+        with self._lock:
+            ring_n = self._ring.n
+            rate = None
+            if ring_n > 1:
+                t = self._ring.last(4096)[0]
+                if t[-1] > t[0]:
+                    rate = (t.size - 1) / (t[-1] - t[0])
+            return Snapshot(
+                source=self.source_name, replay=self.replay, state=self._state_now(),
+                counters=self.session.counters.snapshot(), sample_rate=rate,
+                data_time=self._data_time,
+                recording=str(self.recorder.path) if self.recorder is not None else None,
+                results_log=str(self.results_log) if self.results_log is not None else None,
+                steps=tuple(self._entries), notes=tuple(self._notes),
+                speed=getattr(self.source, "speed", None),
+                profile=getattr(self.profile, "name", None), version=self._version,
+                done=self._done.is_set(), error=self._error, cpu=dict(self._cpu))
+
+    def samples(self, since: float | None = None, count: int = 1 << 16) -> Samples:
+        """Copies of the recent samples: from device time ``since`` (seconds), or the
+        last ``count``."""
+        with self._lock:
+            d = self._ring.since(since) if since is not None else self._ring.last(count)
+        sp = None if np.isnan(d[1]).all() else d[1].copy()
+        return Samples(t=d[0].copy(), feedback=d[2].copy(), setpoint=sp)
+
+    # -- analysis thread --------------------------------------------------------
+    def _progress(self) -> float | None:
+        s = self.session
+        return None if s.first_t is None or s.last_t is None else s.last_t - s.first_t
+
+    def _state_now(self) -> str:
+        if self._state in (DISCONNECTED, PAUSED, FINISHED, STOPPED):
+            return self._state
+        if self._last_data is None or time.monotonic() - self._last_data > 1.0:
+            return WAITING
+        return STREAMING
+
+    def _add_step(self, result: StepResult) -> None:
+        tags = result.tags
+        if not tags and self._notes and not hasattr(self.session, "add_note"):
+            # Local tag timeline (until the session keeps its own): the latest value of
+            # each note name added at or before the step instant.
+            active: dict[str, str] = {}
+            for n in self._notes:
+                if n.t is None or n.t <= result.metrics.t_step:
+                    active[n.name] = n.value
+            tags = tuple(active.items())
+            result = replace(result, tags=tags)
+        verdict = None
+        if self.profile is not None:
+            from livestep.verdict import judge
+
+            verdict = judge(result, self.profile)
+        entry = StepEntry(result, verdict, time.monotonic())
+        if self._log is None and self.results_log is not None:
+            self._log = self.results_log.open("a", encoding="utf-8")
+        if self._log is not None:
+            self._log.write(json.dumps(step_line_record(entry), allow_nan=False) + "\n")
+            self._log.flush()
+        if self.max_steps is not None and len(self._entries) >= self.max_steps:
+            return  # a step closed while stopping: recorded and logged, not announced
+        with self._lock:
+            self._entries.append(entry)
+            old = len(self._entries) - self.keep_windows - 1
+            if old >= 0 and self._entries[old].result.window is not None:
+                e = self._entries[old]
+                self._entries[old] = replace(e, result=replace(e.result, window=None))
+            self._version += 1
+        res = self.session.results
+        if len(res) > self.keep_windows and res[-self.keep_windows - 1].window is not None:
+            res[-self.keep_windows - 1] = replace(res[-self.keep_windows - 1], window=None)
+        if self.on_step is not None:
+            self.on_step(entry)
+        if self.max_steps is not None and len(self._entries) >= self.max_steps:
+            self._stop.set()
+
+    def _set_state(self, state: str) -> None:
+        with self._lock:
+            self._state = state
+            self._version += 1
+
+    def _handle(self, kind: str, payload: object) -> None:
+        if kind == "data":
+            self.session.feed(payload)  # type: ignore[arg-type]
+            return
+        reader = self.source
+        reconnects = getattr(reader, "reconnects", 0)
+        dropped = getattr(reader, "dropped_bytes", 0)
+        self.session.counters.reconnects = reconnects
+        if dropped:
+            self.session.counters.bad["queue overflow (bytes)"] = dropped
+        state = {"connected": WAITING, "disconnected": DISCONNECTED, "paused": PAUSED,
+                 "playing": WAITING, "finished": FINISHED}.get(str(payload), str(payload))
+        self._set_state(state)
+        self.session.state(str(payload))
+        if payload == "finished":
+            self._stop.set()
+
+    def _run(self) -> None:
+        end = self._started + self.duration if self.duration else None
+        events = self.source.events
+        try:
+            while not self._stop.is_set() and (end is None or time.monotonic() < end):
+                try:
+                    kind, payload = events.get(timeout=0.1)
+                except queue.Empty:
+                    self.session.tick()
+                    continue
+                self._handle(kind, payload)
+                self.session.tick()
+        except InputError as exc:
+            self._error = str(exc)
+        except Exception as exc:  # a bug: keep what was recorded, say it in one line
+            self._error = f"internal error: {type(exc).__name__}: {exc}"
+        finally:
+            self._finish()
+
+    def _finish(self) -> None:
+        self.source.stop()
+        with contextlib.suppress(InputError):
+            while self._error is None and not self.replay:  # a file loses nothing
+                try:
+                    kind, payload = self.source.events.get_nowait()
+                except queue.Empty:
+                    break
+                if kind == "data":
+                    self._handle(kind, payload)
+        try:
+            self.session.close()
+        except InputError as exc:
+            self._error = self._error or str(exc)
+        if self._log is not None:
+            self._log.close()
+        self._cpu = {"analysis thread": time.thread_time(),
+                     "reader thread": getattr(self.source, "cpu_time", 0.0)}
+        with self._lock:
+            if self._state != FINISHED:
+                self._state = STOPPED
+            self._version += 1
+        self._done.set()
