@@ -20,7 +20,7 @@ from typing import IO
 from rich.console import Console
 
 from livestep.analysis import AnalysisSettings
-from livestep.errors import EXIT_BAD_INPUT, EXIT_INTERNAL, EXIT_OK, EXIT_STEP_FAILED, InputError
+from livestep.errors import EXIT_BAD_INPUT, EXIT_FAIL, EXIT_OK, InputError
 from livestep.session import AutoDecoder, Decoder, Session, replay_file
 from livestep.sinks.base import Sink
 from livestep.sinks.console import ConsoleSink, JsonLinesSink, counters_table
@@ -87,7 +87,7 @@ def exit_status(error: str | None) -> int:
     """The exit status of a session that ended with ``error`` (``None``: success)."""
     if error is None:
         return EXIT_OK
-    return EXIT_INTERNAL if error.startswith("internal error") else EXIT_BAD_INPUT
+    return EXIT_FAIL if error.startswith("internal error") else EXIT_BAD_INPUT
 
 
 class _Announce(Sink):
@@ -146,7 +146,7 @@ def run_headless(watch: Watch, out: IO[str]) -> int:
     if snap.error:
         print(f"livestep: error: {snap.error}", file=sys.stderr)
         return exit_status(snap.error)
-    return EXIT_STEP_FAILED if verdicts.get("fail") else EXIT_OK
+    return EXIT_FAIL if verdicts.get("fail") else EXIT_OK
 
 
 def run_replay(path: Path, decoder: Decoder, settings: AnalysisSettings, *,
