@@ -308,12 +308,8 @@ def _watch(args: argparse.Namespace) -> int:
 
     if args.steps is not None and args.steps < 1:
         raise InputError("--steps: expected a positive whole number")
-    settings = _analysis_settings(args)
-    profile = None
-    if args.profile:
-        from livestep.profile import load_profile
-
-        profile = load_profile(args.profile)
+    profile = load_profile(args.profile) if args.profile else None
+    settings = _analysis_settings(args, profile)
     decoder = _decoder(args)
     replay = Path(args.source).is_file()
     if replay:

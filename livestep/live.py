@@ -126,14 +126,16 @@ def run_live(port: PortSettings, decoder: Decoder, settings: AnalysisSettings, *
 
 def run_headless(watch: Watch, out: IO[str]) -> int:
     """``watch --headless``: one JSON line per finished step on ``out`` as soon as it is
-    measured, then one ``{"summary": ...}`` line. Exit status: 2 bad input, 1 when a step
-    failed its profile (or an internal error), else 0."""
+    measured, then one ``{"summary": ...}`` line. Exit status as for ``analyze --profile``:
+    1 when a step failed its profile (or none was found to judge) or on an internal error,
+    2 on bad input, else 0."""
 
     def on_step(entry: StepEntry) -> None:
         out.write(json.dumps(step_line_record(entry), allow_nan=False) + "\n")
         out.flush()
 
     watch.on_step = on_step
+    watch.session.sinks.insert(0, _Announce(watch, Console(stderr=True, highlight=False)))
     run_until_done(watch)
     snap = watch.snapshot()
     verdicts = Counter(e.verdict.verdict for e in snap.steps if e.verdict is not None)
@@ -146,7 +148,11 @@ def run_headless(watch: Watch, out: IO[str]) -> int:
     if snap.error:
         print(f"livestep: error: {snap.error}", file=sys.stderr)
         return exit_status(snap.error)
-    return EXIT_FAIL if verdicts.get("fail") else EXIT_OK
+    if watch.profile is None:
+        return EXIT_OK
+    from livestep.cli import gate_status
+
+    return gate_status([e.verdict for e in snap.steps])
 
 
 def run_replay(path: Path, decoder: Decoder, settings: AnalysisSettings, *,

@@ -245,24 +245,11 @@ def results_log_path(recording: Path) -> Path:
 
 
 def step_line_record(entry: StepEntry) -> dict[str, Any]:
-    """The JSON line of a finished step: the ``analyze --json`` step fields, its tags and
-    its verdict (``null`` without a profile)."""
+    """The JSON line of a finished step: the ``analyze --json`` step record (with its
+    tags, and its verdict and checks when there is a profile)."""
     from livestep.report import step_record
 
-    rec = step_record(entry.result)
-    rec["tags"] = dict(entry.result.tags)
-    rec["verdict"] = verdict_record(entry.verdict)
-    return rec
-
-
-def verdict_record(verdict: Any) -> dict[str, Any] | None:
-    """A verdict as JSON: overall verdict and one entry per checked quantity."""
-    if verdict is None:
-        return None
-    return {"verdict": verdict.verdict, "checks": [
-        {"quantity": c.quantity, "value": c.value, "low": c.low, "high": c.high,
-         "margin": c.margin, "verdict": c.verdict, "reason": c.reason}
-        for c in verdict.checks]}
+    return step_record(entry.result, entry.verdict)
 
 
 class _Collector(Sink):

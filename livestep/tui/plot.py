@@ -150,7 +150,7 @@ class Plot:
         for h in self.hlines:
             d = np.zeros((hd, wd), dtype=bool)
             if y0 <= h.y <= y1:
-                d[_rows(np.array([h.y]), y0, y1, hd)[0], ::3] = True
+                d[_rows(np.array([h.y]), y0, y1, hd)[0], ::4] = True
             layers.append((d, Style.parse(h.style)))
         for tr in self.traces:
             layers.append((_trace_dots(tr, x0, x1, y0, y1, (hd, wd)), Style.parse(tr.style)))

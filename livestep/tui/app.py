@@ -1,0 +1,381 @@
+"""The terminal UI of ``livestep watch``: link, live plot, verdict, history, keys.
+
+The app never handles samples one by one: a timer pulls the watch's snapshot at
+:attr:`LivestepApp.FPS` frames per second, appends only the new history rows and
+redraws the plot from the recent samples. Everything it shows is built by
+:mod:`livestep.tui.views`.
+"""
+
+from __future__ import annotations
+
+import importlib
+import time
+from pathlib import Path
+
+from rich.text import Text
+from textual.app import App, ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, Vertical
+from textual.screen import ModalScreen
+from textual.widget import Widget
+from textual.widgets import DataTable, Footer, Input, Static
+
+from livestep.errors import EXIT_OK, InputError
+from livestep.tui import views
+from livestep.tui.plot import Plot
+from livestep.watch import ReplaySource, Snapshot, StepEntry, Watch
+
+__all__ = ["LivestepApp", "run_app", "save_report"]
+
+
+class StepPlotView(Widget):
+    """Thin widget around the pure :class:`~livestep.tui.plot.Plot` renderable."""
+
+    def __init__(self, **kwargs) -> None:  # noqa: ANN003
+        super().__init__(**kwargs)
+        self.plot = Plot([], empty="waiting for samples")
+
+    def show(self, plot: Plot) -> None:
+        self.plot = plot
+        self.refresh()
+
+    def render(self) -> Plot:
+        self.plot.height = self.content_size.height
+        return self.plot
+
+
+class History(DataTable):
+    """The steps so far, newest at the bottom; the app moves the cursor."""
+
+    can_focus = False
+
+
+class NoteScreen(ModalScreen[str | None]):
+    """Asks for a note: ``name=value`` (e.g. ``gains=B``) or a few words."""
+
+    BINDINGS = [Binding("escape", "cancel", "cancel")]
+
+    def compose(self) -> ComposeResult:
+        with Vertical(id="note-box"):
+            yield Static("Note for the steps from now on: NAME=VALUE (e.g. gains=B) or a few"
+                         " words. Enter to add, Escape to cancel.")
+            yield Input(placeholder="gains=B", id="note-input")
+
+    def on_input_submitted(self, event: Input.Submitted) -> None:
+        self.dismiss(event.value)
+
+    def action_cancel(self) -> None:
+        self.dismiss(None)
+
+
+class HelpScreen(ModalScreen[None]):
+    """Every key, and what the symbols mean."""
+
+    BINDINGS = [Binding("escape,question_mark,q,f1", "close", "close")]
+
+    def compose(self) -> ComposeResult:
+        lines = Text()
+        lines.append("Keys\n", "bold")
+        for b in LivestepApp.BINDINGS:
+            assert isinstance(b, Binding)
+            keys = b.key_display or b.key
+            lines.append(f"  {keys:<16} {b.tooltip or b.description}\n")
+        lines.append("\nSymbols\n", "bold")
+        lines.append("  ✔ pass   ▲ warn (inside the limit, within its warning margin)   "
+                     "✘ fail   · not measured\n")
+        for state, sym in views.STATE_SYMBOLS.items():
+            lines.append(f"  {sym} {state}\n")
+        lines.append("\nPlot: r rise (lower and upper level crossings), p peak, s settled;"
+                     " dashed lines: settling band and rise reference levels.\n")
+        lines.append("\nEscape, q or ? closes this screen.", "dim")
+        with Vertical(id="help-box"):
+            yield Static(lines)
+
+    def action_close(self) -> None:
+        self.dismiss(None)
+
+
+def _report_writer():
+    """The report writer of this build, looked up when the key is pressed (``None``
+    when this build has none)."""
+    for module in ("livestep.html_report", "livestep.report_html", "livestep.report"):
+        try:
+            fn = getattr(importlib.import_module(module), "write_report", None)
+        except ImportError:
+            continue
+        if callable(fn):
+            return fn
+    return None
+
+
+def save_report(watch: Watch, folder: Path) -> str:
+    """Write a report of the steps so far; returns the line to show."""
+    write = _report_writer()
+    if write is None:
+        return "report writing is not available in this build"
+    snap = watch.snapshot()
+    path = folder / time.strftime("livestep-report-%Y%m%d-%H%M%S.html")
+    try:
+        write(path, [e.result for e in snap.steps], verdicts=[e.verdict for e in snap.steps],
+              profile=watch.profile, source=snap.source)
+    except (OSError, InputError, TypeError, ValueError) as exc:
+        return f"report not written: {exc}"
+    return f"report saved to {path}"
+
+
+class LivestepApp(App[int]):
+    """The live view of one :class:`~livestep.watch.Watch` (started on mount if it has
+    not been, stopped on exit)."""
+
+    CSS_PATH = "app.tcss"
+    TITLE = "livestep"
+    ENABLE_COMMAND_PALETTE = False
+    FPS = 15.0
+    HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (110, "-wide")]
+    BINDINGS = [
+        Binding("space", "pause", "pause", tooltip="pause / resume: a replay stops playing;"
+                " live, the view holds still while recording and measuring go on"),
+        Binding("left,up", "older", "older", key_display="←/↑",
+                tooltip="show the previous step of the history"),
+        Binding("right,down", "newer", "newer", key_display="→/↓",
+                tooltip="show the next step of the history"),
+        Binding("end,l", "follow", "live", key_display="end/l",
+                tooltip="follow the live stream: newest step and current samples"),
+        Binding("n", "note", "note", tooltip="add a note (e.g. gains=B) that tags the"
+                " following steps"),
+        Binding("m", "model", "model", tooltip="show / hide the fitted model over the data"),
+        Binding("s", "save", "report", tooltip="save a report of the steps so far"),
+        Binding("plus,equals_sign", "faster", "faster", key_display="+", show=False,
+                tooltip="replay: twice as fast"),
+        Binding("minus", "slower", "slower", key_display="-", show=False,
+                tooltip="replay: half as fast"),
+        Binding("question_mark,f1", "help", "help", key_display="?",
+                tooltip="this help: every key and symbol"),
+        Binding("q", "quit", "quit", tooltip="quit (the recording is flushed and closed)"),
+    ]
+
+    def __init__(self, watch: Watch, *, report_folder: Path | None = None) -> None:
+        super().__init__()
+        self.watch = watch
+        self.report_folder = report_folder or Path.cwd()
+        self.selected: int | None = None  # index into the history; None: follow live
+        self.paused = False
+        self.show_model = False
+        self.message = ""
+        self.frames = 0
+        self.snap: Snapshot | None = None
+        self._rows = 0
+        self._shown: tuple | None = None
+        self.shown_at: dict[int, float] = {}  # step index -> when its row appeared
+
+    # -- layout -----------------------------------------------------------------
+    def compose(self) -> ComposeResult:
+        yield Static(id="link")
+        with Horizontal(id="middle"):
+            yield StepPlotView(id="plot")
+            yield Static(id="panel")
+        yield Static(id="message")
+        table = History(id="history", cursor_type="row", zebra_stripes=True)
+        yield table
+        yield Footer()
+
+    def on_mount(self) -> None:
+        table = self.query_one(History)
+        for name in views.HISTORY_COLUMNS:
+            table.add_column(name, key=name)
+        if not getattr(self.watch, "_thread", None):
+            self.watch.start()
+        self.set_interval(1.0 / self.FPS, self.frame)
+        self.frame()
+
+    def on_unmount(self) -> None:
+        self.watch.stop()
+        self.watch.wait(5.0)
+
+    @property
+    def narrow(self) -> bool:
+        return self.size.width < 110
+
+    # -- the frame --------------------------------------------------------------
+    def frame(self) -> None:
+        """Pull one snapshot and update what changed."""
+        snap = self.watch.snapshot()
+        self.snap = snap
+        self.frames += 1
+        with self.batch_update():
+            self.query_one("#link", Static).update(views.link_text(snap, narrow=self.narrow))
+            table = self.query_one(History)
+            new = snap.steps[self._rows:]
+            for e in new:
+                table.add_row(*views.history_row(e), key=str(self._rows))
+                self.shown_at[e.result.index] = time.monotonic()
+                self._rows += 1
+            if new and self.selected is None:
+                table.move_cursor(row=self._rows - 1, animate=False)
+            self._update_step(snap)
+            self.query_one("#message", Static).update(Text(self.message, style="italic"))
+
+    def _entry(self, snap: Snapshot) -> StepEntry | None:
+        if not snap.steps:
+            return None
+        return snap.steps[-1 if self.selected is None else self.selected]
+
+    def _update_step(self, snap: Snapshot) -> None:
+        entry = self._entry(snap)
+        live = self.selected is None
+        key = (None if entry is None else entry.result.index, live, self.narrow,
+               entry.result.tags if entry else None)
+        if key != self._shown:
+            self._shown = key
+            self.query_one("#panel", Static).update(
+                views.step_panel(entry, live=live, narrow=self.narrow))
+        plot = self.query_one(StepPlotView)
+        measure = self.watch.session.settings.measure
+        if not live:
+            w = entry.result.window if entry is not None else None
+            if w is None:
+                plot.show(Plot([], empty=f"step {entry.result.index}: its samples are only"
+                               " in the recording (the last steps are kept in memory)"))
+                return
+            from livestep.watch import Samples
+
+            t_step, t_end = entry.result.metrics.t_step, float(w.t[-1])
+            start = max(float(w.t[0]), t_step - 0.15 * (t_end - t_step))
+            plot.show(views.step_plot(Samples(t=w.t, feedback=w.feedback, setpoint=w.setpoint),
+                                      entry, measure, x_range=(start, t_end),
+                                      model=self.show_model, narrow=self.narrow))
+            return
+        if self.paused and not snap.replay:
+            return  # the live view holds still
+        if snap.data_time is None:
+            return
+        end = snap.data_time
+        start = end - 5.0
+        if entry is not None:
+            start = max(entry.result.metrics.t_step - 0.1 * (end - entry.result.metrics.t_step),
+                        end - 30.0)
+        samples = self.watch.samples(since=start)
+        plot.show(views.step_plot(samples, entry, measure, x_range=(start, end),
+                                  model=self.show_model, narrow=self.narrow))
+
+    # -- keys -------------------------------------------------------------------
+    def say(self, text: str) -> None:
+        self.message = text
+        self.query_one("#message", Static).update(Text(text, style="italic"))
+
+    def _select(self, index: int | None) -> None:
+        self.selected = index
+        if index is not None:
+            self.query_one(History).move_cursor(row=index, animate=False)
+        self._shown = None
+        if self.snap is not None:
+            self._update_step(self.snap)
+
+    def action_older(self) -> None:
+        n = self._rows
+        if n == 0:
+            return
+        cur = n - 1 if self.selected is None else self.selected
+        self._select(max(0, cur - 1))
+
+    def action_newer(self) -> None:
+        if self.selected is None:
+            return
+        if self.selected + 1 >= self._rows:
+            self._select(None)
+            return
+        self._select(self.selected + 1)
+
+    def action_follow(self) -> None:
+        self._select(None)
+        if self._rows:
+            self.query_one(History).move_cursor(row=self._rows - 1, animate=False)
+
+    def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
+        self._select(int(str(event.row_key.value)))
+
+    def action_pause(self) -> None:
+        src = self.watch.source
+        if isinstance(src, ReplaySource):
+            if src.paused:
+                src.resume()
+                self.say("replay playing")
+            else:
+                src.pause()
+                self.say("replay paused")
+            self.paused = src.paused
+            return
+        self.paused = not self.paused
+        self.say("view paused: recording and measuring go on" if self.paused
+                 else "view follows the stream again")
+
+    def _speed(self, factor: float) -> None:
+        src = self.watch.source
+        if not isinstance(src, ReplaySource):
+            self.say("speed applies to a replay only")
+            return
+        if src.speed is None:
+            self.say("replay runs as fast as it can")
+            return
+        speed = min(max(src.speed * factor, 1 / 64), 1024)
+        src.set_speed(speed)
+        self.say(f"replay speed ×{speed:g}")
+
+    def action_faster(self) -> None:
+        self._speed(2.0)
+
+    def action_slower(self) -> None:
+        self._speed(0.5)
+
+    def action_model(self) -> None:
+        self.show_model = not self.show_model
+        self.say("model shown over the data" if self.show_model else "model hidden")
+        if self.snap is not None:
+            self._update_step(self.snap)
+
+    def action_note(self) -> None:
+        self.push_screen(NoteScreen(), self._add_note)
+
+    def _add_note(self, text: str | None) -> None:
+        if not text or not text.strip():
+            self.say("no note added")
+            return
+        name, sep, value = text.partition("=")
+        if not sep:
+            name, value = "note", text
+        try:
+            note = self.watch.add_note(name, value)
+        except InputError as exc:
+            self.say(str(exc))
+            return
+        when = "" if note.t is None else f" from {note.t:.3f} s"
+        self.say(f"note {note.name}={note.value} tags the steps{when} on")
+
+    def action_save(self) -> None:
+        self.say(save_report(self.watch, self.report_folder))
+
+    def action_help(self) -> None:
+        self.push_screen(HelpScreen())
+
+    def action_quit(self) -> None:
+        self.exit(EXIT_OK)
+
+
+def run_app(watch: Watch) -> int:
+    """Run the UI on the terminal until the user quits; returns the exit status."""
+    watch.start()  # a port that cannot be opened fails here, as one line
+    app = LivestepApp(watch)
+    try:
+        status = app.run()
+    finally:
+        watch.stop()
+        watch.wait(10.0)
+    snap = watch.snapshot()
+    if snap.recording:
+        print(f"livestep: recorded to {snap.recording}; steps in {snap.results_log}")
+    if snap.error:
+        from livestep.live import exit_status
+
+        print(f"livestep: error: {snap.error}")
+        return exit_status(snap.error)
+    return EXIT_OK if status is None else status

@@ -1,0 +1,249 @@
+"""What the terminal UI shows, built from a watch snapshot as rich renderables and text.
+
+No textual here: every function takes plain data (a :class:`~livestep.watch.Snapshot`,
+a :class:`~livestep.watch.StepEntry`) and returns rich objects, so the screens' content
+is tested without an app.
+"""
+
+from __future__ import annotations
+
+import importlib
+from typing import Any
+
+import numpy as np
+from rich.console import Group, RenderableType
+from rich.table import Table
+from rich.text import Text
+
+from livestep.analysis import StepResult
+from livestep.measure import MeasureSettings
+from livestep.quantities import QUANTITIES, value_of
+from livestep.second_order import step_response
+from livestep.tui.plot import HLine, Marker, Plot, Trace
+from livestep.verdict import FAIL, NOT_MEASURED, PASS, SYMBOLS, WARN, format_value
+from livestep.watch import (
+    DISCONNECTED,
+    FINISHED,
+    PAUSED,
+    STOPPED,
+    STREAMING,
+    WAITING,
+    Samples,
+    Snapshot,
+    StepEntry,
+)
+
+__all__ = ["STATE_SYMBOLS", "design_sentence", "history_row", "link_text", "step_panel",
+           "step_plot", "verdict_text"]
+
+#: A symbol beside each link state, so the state reads without colour.
+STATE_SYMBOLS = {STREAMING: "▶", WAITING: "◌", DISCONNECTED: "✖", PAUSED: "⏸",
+                 FINISHED: "■", STOPPED: "■"}
+_STATE_STYLE = {STREAMING: "bold green", WAITING: "yellow", DISCONNECTED: "bold red",
+                PAUSED: "bold yellow", FINISHED: "bold", STOPPED: "bold"}
+_VERDICT_STYLE = {PASS: "bold green", WARN: "bold yellow", FAIL: "bold red",
+                  NOT_MEASURED: "dim"}
+#: What the panel shows for a step without a profile.
+DEFAULT_QUANTITIES = ("rise_time", "peak_time", "overshoot_pct", "settling_time",
+                      "steady_state_error_pct", "iae")
+
+
+def verdict_text(verdict: str | None, upper: bool = False) -> Text:
+    """``✔ pass`` and friends, symbol and word (colour only on top)."""
+    if verdict is None:
+        return Text("– no profile", style="dim")
+    word = verdict.upper() if upper else verdict
+    return Text(f"{SYMBOLS[verdict]} {word}", style=_VERDICT_STYLE[verdict])
+
+
+def _rate(hz: float | None) -> str:
+    if hz is None:
+        return "rate –"
+    return f"{hz / 1e3:.2f} kHz" if hz >= 1e3 else f"{hz:.0f} Hz"
+
+
+def link_text(snap: Snapshot, *, narrow: bool = False) -> Text:
+    """The link at a glance: state, source, sample rate, decode errors, recording."""
+    c = snap.counters
+    t = Text()
+    t.append(f"{STATE_SYMBOLS.get(snap.state, '?')} {snap.state}",
+             _STATE_STYLE.get(snap.state, ""))
+    t.append(f"  {snap.source}  ", "bold")
+    t.append(_rate(snap.sample_rate))
+    if snap.replay:
+        t.append("  speed " + ("max" if snap.speed is None else f"×{snap.speed:g}"))
+    if snap.profile:
+        t.append(f"  profile {snap.profile}")
+    t.append("\n")
+    bad = c["bad_total"]
+    t.append(f"errors {bad}", "bold red" if bad else "")
+    if bad and not narrow:
+        worst = sorted(c["bad"].items(), key=lambda kv: -kv[1])[:2]
+        t.append(" (" + ", ".join(f"{k} {n}" for k, n in worst) + ")")
+    t.append(f"  gaps {c['gaps']}  lost {c['lost']}  reconnects {c['reconnects']}"
+             f"  samples {c['samples']}")
+    rec = snap.recording or "not recording"
+    t.append(f"  rec {rec}" if not narrow else f"  rec {rec.rsplit('/', 1)[-1]}")
+    if snap.error:
+        t.append(f"\nerror: {snap.error}", "bold red")
+    return t
+
+
+def _ms(x: float | None) -> str:
+    return "–" if x is None else f"{1e3 * x:.1f}"
+
+
+def history_row(e: StepEntry) -> tuple[Text | str, ...]:
+    """One row of the history table: #, t_step, verdict, rise, overshoot, settling,
+    damping ratio, tags."""
+    r, m = e.result, e.result.metrics
+    return (str(r.index), f"{m.t_step:.3f}",
+            verdict_text(e.verdict.verdict if e.verdict else None),
+            _ms(m.rise_time), f"{m.overshoot_pct:.1f}",
+            _ms(m.settling_time) if m.settled else "no",
+            "–" if r.model is None else f"{r.model.zeta:.3f}",
+            " ".join(f"{k}={v}" for k, v in r.tags))
+
+
+HISTORY_COLUMNS = ("#", "t step s", "verdict", "rise ms", "OS %", "settle ms", "ζ", "tags")
+
+
+def _limit_text(q: Any, low: float | None, high: float | None) -> str:
+    if low is not None and high is not None:
+        return f"{format_value(q, low)} … {format_value(q, high)}"
+    if high is not None:
+        return f"≤ {format_value(q, high)}"
+    if low is not None:
+        return f"≥ {format_value(q, low)}"
+    return "–"
+
+
+def design_sentence(result: StepResult) -> str:
+    """The design-guidance sentence for a step, from :mod:`livestep.design` where this
+    build has it (looked up at call time)."""
+    try:
+        design = importlib.import_module("livestep.design")
+    except ImportError:
+        return "design guidance is not available in this build"
+    for name in ("guidance", "design_guidance", "advice"):
+        fn = getattr(design, name, None)
+        if callable(fn):
+            out = fn(result)
+            return str(getattr(out, "sentence", out))
+    return "design guidance is not available in this build"
+
+
+def step_panel(e: StepEntry | None, *, live: bool, narrow: bool = False) -> RenderableType:
+    """The chosen step against its profile: verdict, one row per limit with the value, the
+    limit, the margin and the check's verdict; the fitted model; the design sentence."""
+    if e is None:
+        return Text("no step yet: step the setpoint and the verdict appears here",
+                    style="dim")
+    r, m = e.result, e.result.metrics
+    head = Text()
+    head.append(f"step {r.index} ", "bold")
+    head.append_text(verdict_text(e.verdict.verdict if e.verdict else None, upper=True))
+    head.append(f"  {m.direction} {m.amplitude:+.4g} at {m.t_step:.3f} s")
+    head.append("  (latest)" if live else "  (history)", "dim")
+    if r.tags:
+        head.append("  " + " ".join(f"{k}={v}" for k, v in r.tags), "italic")
+    table = Table(box=None, pad_edge=False, padding=(0, 1), show_edge=False,
+                  header_style="bold")
+    table.add_column("quantity", no_wrap=True)
+    table.add_column("value", justify="right", no_wrap=True)
+    if e.verdict is not None:
+        table.add_column("limit", justify="right", no_wrap=True)
+        table.add_column("margin", justify="right", no_wrap=True)
+        table.add_column("check", no_wrap=True)
+        for c in e.verdict.checks:
+            q = QUANTITIES[c.quantity]
+            label = q.label.replace(" (model)", "") if narrow else q.label
+            table.add_row(label, format_value(q, c.value), _limit_text(q, c.low, c.high),
+                          "–" if c.margin is None else format_value(q, c.margin),
+                          verdict_text(c.verdict))
+    else:
+        for name in DEFAULT_QUANTITIES:
+            q = QUANTITIES[name]
+            table.add_row(q.label, format_value(q, value_of(r, name)))
+    model = Text()
+    f = r.model
+    if f is None:
+        model.append("model: not fitted", "dim")
+    else:
+        model.append(f"ζ {f.zeta:.3f}  ωn {f.wn:.4g} rad/s  dead time "
+                     f"{1e3 * f.dead_time:.1f} ms  R² {f.fit_r2:.3f}")
+    parts: list[RenderableType] = [head, table, model]
+    if not narrow:
+        parts.append(Text(design_sentence(r), style="italic"))
+        for w in r.warnings[:2]:
+            parts.append(Text(f"▲ {w}", style="yellow"))
+    return Group(*parts)
+
+
+def _crossing(t: np.ndarray, y: np.ndarray, level: float, rising: bool) -> float | None:
+    hit = np.flatnonzero(y >= level) if rising else np.flatnonzero(y <= level)
+    if hit.size == 0:
+        return None
+    k = int(hit[0])
+    if k == 0 or y[k] == y[k - 1]:
+        return float(t[k])
+    return float(t[k - 1] + (level - y[k - 1]) * (t[k] - t[k - 1]) / (y[k] - y[k - 1]))
+
+
+def overlays(r: StepResult, measure: MeasureSettings, *,
+             feedback: tuple[np.ndarray, np.ndarray] | None = None
+             ) -> tuple[list[HLine], list[Marker]]:
+    """Settling band and reference levels as lines; the rise (lower and upper level
+    crossings), peak and settling instants as markers ``r``, ``p``, ``s``."""
+    m = r.metrics
+    band = measure.settling_band / 100 * abs(m.amplitude)
+    lo, hi = (m.initial + p / 100 * m.amplitude for p in measure.rise_levels)
+    lines = [HLine(m.final - band, "green"), HLine(m.final + band, "green"),
+             HLine(lo, "magenta"), HLine(hi, "magenta")]
+    marks: list[Marker] = []
+    if m.rise_time is not None and feedback is not None:
+        t, y = feedback
+        after = t >= m.t_step
+        t_lo = _crossing(t[after], y[after], lo, m.amplitude > 0)
+        if t_lo is not None:
+            marks += [Marker(t_lo, "r", "bold magenta"),
+                      Marker(t_lo + m.rise_time, "r", "bold magenta")]
+    if m.peak_time is not None:
+        marks.append(Marker(m.t_step + m.peak_time, "p", "bold red"))
+    if m.settled and m.settling_time is not None:
+        marks.append(Marker(m.t_step + m.settling_time, "s", "bold green"))
+    return lines, marks
+
+
+LEGEND = ("⣿ setpoint (yellow)  ⣿ feedback (cyan)  ┄ band (green)  ┄ rise levels (magenta)"
+          "  r rise  p peak  s settled")
+LEGEND_NARROW = "r rise  p peak  s settled  ┄ band, rise levels"
+
+
+def step_plot(samples: Samples | None, e: StepEntry | None, measure: MeasureSettings, *,
+              x_range: tuple[float, float] | None = None, model: bool = False,
+              narrow: bool = False, empty: str = "no samples yet") -> Plot:
+    """The plot of some samples (the live stretch or a step's window) with the step's
+    band, levels and instants, and the fitted model's response when ``model``."""
+    traces: list[Trace] = []
+    lines: list[HLine] = []
+    marks: list[Marker] = []
+    origin = 0.0
+    if samples is not None and samples.t.size:
+        if samples.setpoint is not None:
+            traces.append(Trace(samples.t, samples.setpoint, "yellow", "setpoint"))
+        traces.append(Trace(samples.t, samples.feedback, "cyan", "feedback"))
+    if e is not None:
+        r = e.result
+        origin = r.metrics.t_step
+        fb = (samples.t, samples.feedback) if samples is not None else None
+        lines, marks = overlays(r, measure, feedback=fb)
+        if model and r.model is not None and samples is not None and samples.t.size:
+            f, mt = r.model, r.metrics
+            tt = np.linspace(mt.t_step, float(samples.t[-1]), 400)
+            y = mt.initial + f.amplitude * step_response(
+                np.maximum(tt - mt.t_step - f.dead_time, 0.0), f.zeta, f.wn)
+            traces.append(Trace(tt, y, "bold white", "model"))
+    legend = LEGEND_NARROW if narrow else LEGEND + ("  ⣿ model (white)" if model else "")
+    return Plot(traces, hlines=lines, markers=marks, x_range=x_range, t_origin=origin,
+                legend=legend, empty=empty)
