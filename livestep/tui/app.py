@@ -16,6 +16,7 @@ from rich.text import Text
 from textual.app import App, ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
+from textual.css.query import NoMatches
 from textual.screen import ModalScreen
 from textual.widget import Widget
 from textual.widgets import DataTable, Footer, Input, Static
@@ -48,6 +49,11 @@ class History(DataTable):
     """The steps so far, newest at the bottom; the app moves the cursor."""
 
     can_focus = False
+    clicked = False  # the next highlight comes from the user's click
+
+    async def _on_click(self, event) -> None:  # noqa: ANN001 - textual's Click
+        self.clicked = True
+        await super()._on_click(event)
 
 
 class NoteScreen(ModalScreen[str | None]):
@@ -202,6 +208,12 @@ class LivestepApp(App[int]):
         snap = self.watch.snapshot()
         self.snap = snap
         self.frames += 1
+        try:
+            self._frame(snap)
+        except NoMatches:  # a timer firing while the screen is torn down
+            pass
+
+    def _frame(self, snap: Snapshot) -> None:
         with self.batch_update():
             self.query_one("#link", Static).update(views.link_text(snap, narrow=self.narrow))
             table = self.query_one(History)
@@ -211,7 +223,7 @@ class LivestepApp(App[int]):
                 self.shown_at[e.result.index] = time.monotonic()
                 self._rows += 1
             if new and self.selected is None:
-                table.move_cursor(row=self._rows - 1, animate=False)
+                self._move_cursor(self._rows - 1)
             self._update_step(snap)
             self.query_one("#message", Static).update(Text(self.message, style="italic"))
 
@@ -266,7 +278,7 @@ class LivestepApp(App[int]):
     def _select(self, index: int | None) -> None:
         self.selected = index
         if index is not None:
-            self.query_one(History).move_cursor(row=index, animate=False)
+            self._move_cursor(index)
         self._shown = None
         if self.snap is not None:
             self._update_step(self.snap)
@@ -289,10 +301,20 @@ class LivestepApp(App[int]):
     def action_follow(self) -> None:
         self._select(None)
         if self._rows:
-            self.query_one(History).move_cursor(row=self._rows - 1, animate=False)
+            self._move_cursor(self._rows - 1)
+
+    def _move_cursor(self, row: int) -> None:
+        self.query_one(History).move_cursor(row=row, animate=False)
+
+    def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
+        """A row the user clicked (the app's own cursor moves are not choices)."""
+        table = self.query_one(History)
+        if table.clicked:
+            table.clicked = False
+            self._select(event.cursor_row)
 
     def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
-        self._select(int(str(event.row_key.value)))
+        self._select(event.cursor_row)
 
     def action_pause(self) -> None:
         src = self.watch.source

@@ -94,15 +94,17 @@ def _trace_dots(tr: Trace, x0: float, x1: float, y0: float, y1: float,
 class Plot:
     """A plot of ``traces`` over ``x_range`` (seconds; default: the traces' span) and
     ``y_range`` (default: all traces and lines, with a margin), ``height`` rows including
-    the time axis and the legend. Times on the axis are shown relative to ``t_origin``."""
+    the time axis and the legend (``(text, style)`` pieces, cut at the width, whole pieces
+    only). Times on the axis are shown relative to ``t_origin``."""
 
     def __init__(self, traces: Sequence[Trace], *, hlines: Sequence[HLine] = (),
                  markers: Sequence[Marker] = (), x_range: tuple[float, float] | None = None,
                  y_range: tuple[float, float] | None = None, height: int | None = None,
-                 t_origin: float = 0.0, legend: str = "", empty: str = "no samples yet") -> None:
+                 t_origin: float = 0.0, legend: Sequence[tuple[str, str]] = (),
+                 empty: str = "no samples yet") -> None:
         self.traces, self.hlines, self.markers = list(traces), list(hlines), list(markers)
         self.x_range, self.y_range, self.height = x_range, y_range, height
-        self.t_origin, self.legend, self.empty = t_origin, legend, empty
+        self.t_origin, self.legend, self.empty = t_origin, list(legend), empty
 
     def ranges(self) -> tuple[tuple[float, float], tuple[float, float]] | None:
         """The x and y ranges the plot shows, or ``None`` when there is nothing to show."""
@@ -191,7 +193,13 @@ class Plot:
         axis = " " * gutter + left + " " * max(1, w - len(left) - len(right)) + right
         yield Segment(axis[:width] + "\n", Style(dim=True))
         if self.legend:
-            yield Segment(self.legend[:width] + "\n")
+            used = 0
+            for text, style in self.legend:
+                if used + len(text) > width:
+                    break
+                yield Segment(text, Style.parse(style))
+                used += len(text)
+            yield Segment("\n")
 
 
 def _t(seconds: float) -> str:

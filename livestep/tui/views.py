@@ -170,7 +170,7 @@ def step_panel(e: StepEntry | None, *, live: bool, narrow: bool = False) -> Rend
     if f is None:
         model.append("model: not fitted", "dim")
     else:
-        model.append(f"ζ {f.zeta:.3f}  ωn {f.wn:.4g} rad/s  dead time "
+        model.append(f"ζ {f.zeta:.3f}  ωn {f.wn:.4g} rad/s  dead "
                      f"{1e3 * f.dead_time:.1f} ms  R² {f.fit_r2:.3f}")
     parts: list[RenderableType] = [head, table, model]
     if not narrow:
@@ -215,9 +215,10 @@ def overlays(r: StepResult, measure: MeasureSettings, *,
     return lines, marks
 
 
-LEGEND = ("⣿ setpoint (yellow)  ⣿ feedback (cyan)  ┄ band (green)  ┄ rise levels (magenta)"
-          "  r rise  p peak  s settled")
-LEGEND_NARROW = "r rise  p peak  s settled  ┄ band, rise levels"
+LEGEND = (("⣿ setpoint ", "yellow"), ("⣿ feedback ", "cyan"), ("┄ settling band ", "green"),
+          ("┄ rise levels ", "magenta"), ("r rise ", "bold magenta"), ("p peak ", "bold red"),
+          ("s settled ", "bold green"))
+MODEL_LEGEND = (("⣿ model ", "bold white"),)
 
 
 def step_plot(samples: Samples | None, e: StepEntry | None, measure: MeasureSettings, *,
@@ -244,6 +245,6 @@ def step_plot(samples: Samples | None, e: StepEntry | None, measure: MeasureSett
             y = mt.initial + f.amplitude * step_response(
                 np.maximum(tt - mt.t_step - f.dead_time, 0.0), f.zeta, f.wn)
             traces.append(Trace(tt, y, "bold white", "model"))
-    legend = LEGEND_NARROW if narrow else LEGEND + ("  ⣿ model (white)" if model else "")
+    legend = (LEGEND[4:] + LEGEND[:4] if narrow else LEGEND) + (MODEL_LEGEND if model else ())
     return Plot(traces, hlines=lines, markers=marks, x_range=x_range, t_origin=origin,
                 legend=legend, empty=empty)
