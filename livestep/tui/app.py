@@ -17,6 +17,7 @@ from textual.app import App, ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.css.query import NoMatches
+from textual.message import Message
 from textual.screen import ModalScreen
 from textual.widget import Widget
 from textual.widgets import DataTable, Footer, Input, Static
@@ -173,6 +174,8 @@ class LivestepApp(App[int]):
         self._rows = 0
         self._shown: tuple | None = None
         self.shown_at: dict[int, float] = {}  # step index -> when its row appeared
+        self._chained = watch.on_step
+        watch.on_step = self._notify_step
 
     # -- layout -----------------------------------------------------------------
     def compose(self) -> ComposeResult:
@@ -184,6 +187,18 @@ class LivestepApp(App[int]):
         table = History(id="history", cursor_type="row", zebra_stripes=True)
         yield table
         yield Footer()
+
+    class StepArrived(Message):
+        """Posted from the analysis thread when a step is published: draw it now rather
+        than at the next frame."""
+
+    def on_livestep_app_step_arrived(self, message: StepArrived) -> None:
+        self.frame()
+
+    def _notify_step(self, entry: StepEntry) -> None:  # on the analysis thread
+        if self._chained is not None:
+            self._chained(entry)
+        self.post_message(self.StepArrived())
 
     def on_mount(self) -> None:
         table = self.query_one(History)
