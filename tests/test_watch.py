@@ -189,3 +189,13 @@ def test_headless_exit_status_follows_the_profile(tmp_path):
     assert bad.returncode == 2 and bad.stderr.count("\n") == 1
     missing = run_cli("watch", "/dev/ttyLIVESTEP_NONE", "--headless")
     assert missing.returncode == 2 and "no such port" in missing.stderr
+
+
+def test_headless_duration_stops_by_itself():
+    run = run_cli("watch", str(FIXTURE), "--headless", "--speed", "8", "--duration", "1")
+    assert run.returncode == 0, run.stderr
+    lines = [json.loads(x) for x in run.stdout.splitlines()]
+    summary = lines[-1]["summary"]
+    # 1 s at 8 x real time is about 8 s of the 18 s recording: it stopped before the end.
+    assert summary["steps"] == len(lines) - 1 and 0 < summary["samples"] < 36000
+    assert summary["verdicts"] == {} and summary["profile"] is None

@@ -172,6 +172,7 @@ class LivestepApp(App[int]):
         self.frames = 0
         self.snap: Snapshot | None = None
         self._rows = 0
+        self._link: Text | None = None
         self._shown: tuple | None = None
         self.shown_at: dict[int, float] = {}  # step index -> when its row appeared
         self._chained = watch.on_step
@@ -230,7 +231,12 @@ class LivestepApp(App[int]):
 
     def _frame(self, snap: Snapshot) -> None:
         with self.batch_update():
-            self.query_one("#link", Static).update(views.link_text(snap, narrow=self.narrow))
+            link = views.link_text(snap, narrow=self.narrow)
+            if link != self._link:  # a new line count needs a new layout, new text does not
+                self.query_one("#link", Static).update(
+                    link, layout=self._link is None or link.plain.count("\n") !=
+                    self._link.plain.count("\n"))
+                self._link = link
             table = self.query_one(History)
             new = snap.steps[self._rows:]
             for e in new:
@@ -240,7 +246,6 @@ class LivestepApp(App[int]):
             if new and self.selected is None:
                 self._move_cursor(self._rows - 1)
             self._update_step(snap)
-            self.query_one("#message", Static).update(Text(self.message, style="italic"))
 
     def _entry(self, snap: Snapshot) -> StepEntry | None:
         if not snap.steps:
@@ -288,7 +293,7 @@ class LivestepApp(App[int]):
     # -- keys -------------------------------------------------------------------
     def say(self, text: str) -> None:
         self.message = text
-        self.query_one("#message", Static).update(Text(text, style="italic"))
+        self.query_one("#message", Static).update(Text(text, style="italic"), layout=False)
 
     def _select(self, index: int | None) -> None:
         self.selected = index
