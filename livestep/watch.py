@@ -297,6 +297,7 @@ class Watch:
         self._ring = _Ring(ring_samples)
         self._entries: list[StepEntry] = []
         self._notes: list[Note] = []
+        self._new_notes: list[Note] = []
         self._data_time: float | None = None
         self._last_data: float | None = None
         self._version = 0
@@ -338,6 +339,10 @@ class Watch:
         return self._done.wait(timeout)
 
     @property
+    def started(self) -> bool:
+        return self._thread is not None
+
+    @property
     def done(self) -> bool:
         return self._done.is_set()
 
@@ -350,12 +355,8 @@ class Watch:
         with self._lock:
             note = Note(name, value, self._data_time)
             self._notes.append(note)
+            self._new_notes.append(note)  # handed to the session on the analysis thread
             self._version += 1
-        add = getattr(self.session, "add_note", None)
-        if callable(add):  # the session's own tag timeline, where there is one
-            add(name, value, t=note.t)
-        elif self.recorder is not None:
-            self.recorder.note(f"note: {name}={value}")
         return note
 
     def snapshot(self) -> Snapshot:
@@ -403,7 +404,9 @@ class Watch:
             # Local tag timeline (until the session keeps its own): the latest value of
             # each note name added at or before the step instant.
             active: dict[str, str] = {}
-            for n in self._notes:
+            with self._lock:
+                notes = list(self._notes)
+            for n in notes:
                 if n.t is None or n.t <= result.metrics.t_step:
                     active[n.name] = n.value
             tags = tuple(active.items())
@@ -436,6 +439,16 @@ class Watch:
         if self.max_steps is not None and len(self._entries) >= self.max_steps:
             self._stop.set()
 
+    def _pass_notes(self) -> None:
+        with self._lock:
+            notes, self._new_notes = self._new_notes, []
+        for note in notes:
+            add = getattr(self.session, "add_note", None)
+            if callable(add):  # the session's own tag timeline, where there is one
+                add(note.name, note.value, t=note.t)
+            elif self.recorder is not None:
+                self.recorder.note(f"note: {note.name}={note.value}")
+
     def _set_state(self, state: str) -> None:
         with self._lock:
             self._state = state
@@ -463,6 +476,8 @@ class Watch:
         events = self.source.events
         try:
             while not self._stop.is_set() and (end is None or time.monotonic() < end):
+                if self._new_notes:
+                    self._pass_notes()
                 try:
                     kind, payload = events.get(timeout=0.1)
                 except queue.Empty:
@@ -479,6 +494,7 @@ class Watch:
 
     def _finish(self) -> None:
         self.source.stop()
+        self._pass_notes()
         with contextlib.suppress(InputError):
             while self._error is None and not self.replay:  # a file loses nothing
                 try:

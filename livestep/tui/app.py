@@ -205,7 +205,7 @@ class LivestepApp(App[int]):
         table = self.query_one(History)
         for name in views.HISTORY_COLUMNS:
             table.add_column(name, key=name)
-        if not getattr(self.watch, "_thread", None):
+        if not self.watch.started:
             self.watch.start()
         self.set_interval(1.0 / self.FPS, self.frame)
         self.frame()
