@@ -4,9 +4,17 @@ recording and from a pty writer: rows and verdicts, keys, link states, notes, 80
 from __future__ import annotations
 
 import asyncio
+import fcntl
 import io
 import os
+import re
+import select
+import signal
+import struct
+import subprocess
 import sys
+import termios
+import time
 from pathlib import Path
 
 import pytest
@@ -236,3 +244,60 @@ def test_main_screen_snapshot(tmp_path):
         assert text + "\n" == expected_file.read_text()
 
     drive(app, script)
+
+
+def run_in_terminal(args: list[str], keys: bytes | None, size=(24, 80), seconds: float = 3.0):
+    """Run ``livestep`` on a real pseudo-terminal of ``size`` (rows, columns) for a while,
+    then type ``keys`` (or send SIGTERM): its exit status and everything it drew."""
+    master, slave = os.openpty()
+    fcntl.ioctl(slave, termios.TIOCSWINSZ, struct.pack("HHHH", *size, 0, 0))
+    env = dict(os.environ, TERM="xterm-256color")
+    proc = subprocess.Popen([sys.executable, "-m", "livestep", *args], stdin=slave,
+                            stdout=slave, stderr=slave, env=env, cwd=FIXTURE.parent.parent,
+                            start_new_session=True)
+    os.close(slave)
+    out = b""
+
+    def read_for(t: float) -> bytes:
+        got, end = b"", time.monotonic() + t
+        while time.monotonic() < end and proc.poll() is None:
+            if select.select([master], [], [], 0.05)[0]:
+                try:
+                    got += os.read(master, 1 << 16)
+                except OSError:
+                    break
+        return got
+
+    try:
+        out += read_for(seconds)
+        if keys is None:
+            proc.send_signal(signal.SIGTERM)
+        else:
+            os.write(master, keys)
+        out += read_for(15.0)
+        status = proc.wait(timeout=15)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+        os.close(master)
+    text = re.sub(r"\x1b\[[0-9;?<>=]*[A-Za-z~]|\x1b[\]P][^\x07\x1b]*(\x07|\x1b\\)|\x1b.", "",
+                  out.decode("utf-8", "replace"))
+    return status, text
+
+
+def test_a_real_terminal_shows_the_replay_and_quits(tmp_path):
+    profile = tmp_path / "gate.toml"
+    profile.write_text(PROFILE)
+    status, text = run_in_terminal(["watch", str(FIXTURE), "--speed", "20", "--profile",
+                                    str(profile)], b"q")
+    assert status == 0
+    assert "replay finished" in text and "✘ fail" in text and "✔ pass" in text
+    assert "Traceback" not in text
+
+
+def test_sigterm_ends_the_ui_cleanly_and_keeps_the_recording(tmp_path):
+    rec = tmp_path / "t.csv"
+    status, text = run_in_terminal(["watch", str(FIXTURE), "--speed", "4", "--record",
+                                    str(rec)], None, seconds=2.0)
+    assert status == 0 and "Traceback" not in text
+    assert rec.read_text().rstrip().splitlines()[-1].startswith("# counters: ")

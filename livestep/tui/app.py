@@ -8,7 +8,10 @@ redraws the plot from the recent samples. Everything it shows is built by
 
 from __future__ import annotations
 
+import asyncio
+import contextlib
 import importlib
+import signal
 import time
 from pathlib import Path
 
@@ -161,8 +164,10 @@ class LivestepApp(App[int]):
         Binding("q", "quit", "quit", tooltip="quit (the recording is flushed and closed)"),
     ]
 
-    def __init__(self, watch: Watch, *, report_folder: Path | None = None) -> None:
+    def __init__(self, watch: Watch, *, report_folder: Path | None = None,
+                 quit_on_sigterm: bool = False) -> None:
         super().__init__()
+        self.quit_on_sigterm = quit_on_sigterm
         self.watch = watch
         self.report_folder = report_folder or Path.cwd()
         self.selected: int | None = None  # index into the history; None: follow live
@@ -207,6 +212,9 @@ class LivestepApp(App[int]):
             table.add_column(name, key=name)
         if not self.watch.started:
             self.watch.start()
+        if self.quit_on_sigterm:  # SIGTERM ends the session as cleanly as q
+            with contextlib.suppress(NotImplementedError, RuntimeError):
+                asyncio.get_running_loop().add_signal_handler(signal.SIGTERM, self.exit)
         self.set_interval(1.0 / self.FPS, self.frame)
         self.frame()
 
@@ -406,7 +414,7 @@ class LivestepApp(App[int]):
 def run_app(watch: Watch) -> int:
     """Run the UI on the terminal until the user quits; returns the exit status."""
     watch.start()  # a port that cannot be opened fails here, as one line
-    app = LivestepApp(watch)
+    app = LivestepApp(watch, quit_on_sigterm=True)
     try:
         status = app.run()
     finally:

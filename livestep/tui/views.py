@@ -98,7 +98,7 @@ def history_row(e: StepEntry) -> tuple[Text | str, ...]:
     damping ratio, tags."""
     r, m = e.result, e.result.metrics
     return (str(r.index), f"{m.t_step:.3f}",
-            verdict_text(e.verdict.verdict if e.verdict else None),
+            verdict_text(e.verdict.verdict) if e.verdict else "–",
             _ms(m.rise_time), f"{m.overshoot_pct:.1f}",
             _ms(m.settling_time) if m.settled else "no",
             "–" if r.model is None else f"{r.model.zeta:.3f}",
