@@ -105,32 +105,33 @@ class HelpScreen(ModalScreen[None]):
         self.dismiss(None)
 
 
-def _report_writer():
-    """The report writer of this build, looked up when the key is pressed (``None``
-    when this build has none)."""
-    for module in ("livestep.html_report", "livestep.report_html", "livestep.report"):
-        try:
-            fn = getattr(importlib.import_module(module), "write_report", None)
-        except ImportError:
-            continue
-        if callable(fn):
-            return fn
-    return None
-
-
 def save_report(watch: Watch, folder: Path) -> str:
-    """Write a report of the steps so far; returns the line to show."""
-    write = _report_writer()
-    if write is None:
+    """Write the HTML report of the steps so far with :mod:`livestep.reports` where this
+    build has it (looked up at call time); returns the line to show. The steps still in
+    memory get their plots; older ones only their figures."""
+    try:
+        reports = importlib.import_module("livestep.reports")
+        write, info_type = reports.write_report, reports.SessionInfo
+    except (ImportError, AttributeError):
         return "report writing is not available in this build"
     snap = watch.snapshot()
+    if not snap.steps:
+        return "no steps yet: no report written"
+    first, last = watch.session.first_t, watch.session.last_t
+    duration = None if first is None or last is None else last - first
+    samples = snap.counters["samples"]
+    meta = [("source", snap.source)] + ([("recording", snap.recording)] if snap.recording
+                                        else [])
+    info = info_type(source=snap.recording or snap.source, samples=samples, duration=duration,
+                     sample_rate=samples / duration if duration else None,
+                     metadata=tuple(meta), counters=snap.counters)
     path = folder / time.strftime("livestep-report-%Y%m%d-%H%M%S.html")
     try:
-        write(path, [e.result for e in snap.steps], verdicts=[e.verdict for e in snap.steps],
-              profile=watch.profile, source=snap.source)
-    except (OSError, InputError, TypeError, ValueError) as exc:
+        out = write(path, [e.result for e in snap.steps], info, watch.profile,
+                    measure=watch.session.settings.measure)
+    except (OSError, InputError) as exc:
         return f"report not written: {exc}"
-    return f"report saved to {path}"
+    return f"report saved to {out or path}"
 
 
 class LivestepApp(App[int]):
@@ -267,8 +268,11 @@ class LivestepApp(App[int]):
                entry.result.tags if entry else None)
         if key != self._shown:
             self._shown = key
+            guidance = "" if entry is None else views.design_sentence(
+                entry.result, self.watch.profile,
+                self.watch.session.settings.measure.settling_band)
             self.query_one("#panel", Static).update(
-                views.step_panel(entry, live=live, narrow=self.narrow))
+                views.step_panel(entry, live=live, narrow=self.narrow, guidance=guidance))
         plot = self.query_one(StepPlotView)
         measure = self.watch.session.settings.measure
         if not live:
@@ -402,7 +406,12 @@ class LivestepApp(App[int]):
         self.say(f"note {note.name}={note.value} tags the steps{when} on")
 
     def action_save(self) -> None:
-        self.say(save_report(self.watch, self.report_folder))
+        """Writes in a thread: a report with plots takes a moment, the view goes on."""
+        self.say("writing the report ...")
+        self.run_worker(self._save, thread=True, exclusive=True, exit_on_error=False)
+
+    def _save(self) -> None:
+        self.call_from_thread(self.say, save_report(self.watch, self.report_folder))
 
     def action_help(self) -> None:
         self.push_screen(HelpScreen())

@@ -118,22 +118,29 @@ def _limit_text(q: Any, low: float | None, high: float | None) -> str:
     return "–"
 
 
-def design_sentence(result: StepResult) -> str:
-    """The design-guidance sentence for a step, from :mod:`livestep.design` where this
-    build has it (looked up at call time)."""
+def design_sentence(result: StepResult, profile: Any, band_pct: float) -> str:
+    """The design-guidance sentence for a step: where the profile wants the dominant poles
+    against the step's fitted model, from :mod:`livestep.design` where this build has it
+    (looked up at call time); the requirement missed by most comes first."""
     try:
         design = importlib.import_module("livestep.design")
-    except ImportError:
+        assess, region_of = design.assess, design.design_region
+    except (ImportError, AttributeError):
         return "design guidance is not available in this build"
-    for name in ("guidance", "design_guidance", "advice"):
-        fn = getattr(design, name, None)
-        if callable(fn):
-            out = fn(result)
-            return str(getattr(out, "sentence", out))
-    return "design guidance is not available in this build"
+    if profile is None:
+        return "design guidance needs a profile (--profile)"
+    if result.model is None:
+        return "no model fitted: no design guidance"
+    region = region_of(profile.limits_for(result), band_pct)
+    if region.empty:
+        return "the profile limits none of overshoot, settling and peak time: no guidance"
+    sentences = assess(result.model, region)
+    note = getattr(design, "SHORT_ASSUMPTION", "")
+    return sentences[0] + (f" ({note})" if note else "") if sentences else ""
 
 
-def step_panel(e: StepEntry | None, *, live: bool, narrow: bool = False) -> RenderableType:
+def step_panel(e: StepEntry | None, *, live: bool, narrow: bool = False,
+               guidance: str = "") -> RenderableType:
     """The chosen step against its profile: verdict, one row per limit with the value, the
     limit, the margin and the check's verdict; the fitted model; the design sentence."""
     if e is None:
@@ -174,7 +181,7 @@ def step_panel(e: StepEntry | None, *, live: bool, narrow: bool = False) -> Rend
                      f"{1e3 * f.dead_time:.1f} ms  R² {f.fit_r2:.3f}")
     parts: list[RenderableType] = [head, table, model]
     if not narrow:
-        parts.append(Text(design_sentence(r), style="italic"))
+        parts.append(Text(guidance, style="italic"))
         for w in r.warnings[:2]:
             parts.append(Text(f"▲ {w}", style="yellow"))
     return Group(*parts)
@@ -201,10 +208,14 @@ def overlays(r: StepResult, measure: MeasureSettings, *,
     lines = [HLine(m.final - band, "green"), HLine(m.final + band, "green"),
              HLine(lo, "magenta"), HLine(hi, "magenta")]
     marks: list[Marker] = []
-    if m.rise_time is not None and feedback is not None:
-        t, y = feedback
-        after = t >= m.t_step
-        t_lo = _crossing(t[after], y[after], lo, m.amplitude > 0)
+    if m.rise_time is not None:
+        t_lo = None
+        if getattr(m, "rise_start", None) is not None:  # measured, where the build has it
+            t_lo = m.t_step + m.rise_start  # type: ignore[attr-defined]
+        elif feedback is not None:  # else the raw samples' first crossing of the low level
+            t, y = feedback
+            after = t >= m.t_step
+            t_lo = _crossing(t[after], y[after], lo, m.amplitude > 0)
         if t_lo is not None:
             marks += [Marker(t_lo, "r", "bold magenta"),
                       Marker(t_lo + m.rise_time, "r", "bold magenta")]
