@@ -11,7 +11,7 @@ import argparse
 import os
 import sys
 import time
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from pathlib import Path
 
 from livestep import __version__
@@ -24,6 +24,7 @@ from livestep.live import run_live, run_replay
 from livestep.measure import MeasureSettings
 from livestep.profile import Profile, load_profile
 from livestep.recording import TIME_UNITS, ColumnMap, RecordingReader, read_ahead
+from livestep.samples import SampleChunk
 from livestep.session import Decoder, make_decoder
 from livestep.verdict import StepVerdict
 
@@ -125,6 +126,23 @@ def _decoder(args: argparse.Namespace) -> Decoder:
                         channels=tuple(args.channels.split(",")))
 
 
+def _add_column_options(p: argparse.ArgumentParser) -> None:
+    cols = p.add_argument_group("columns")
+    cols.add_argument("--time", default="t", metavar="COL", help="time column (default t)")
+    cols.add_argument("--setpoint", metavar="COL",
+                      help="setpoint column (default: 'setpoint' if present, else steps are"
+                      " found from the feedback alone)")
+    cols.add_argument("--feedback", default="feedback", metavar="COL",
+                      help="feedback column (default feedback)")
+    cols.add_argument("--time-unit", default="s", choices=sorted(TIME_UNITS),
+                      help="unit of the time column (default s)")
+
+
+def _add_jobs_option(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--jobs", type=int, default=min(os.cpu_count() or 1, 4), metavar="N",
+                   help="worker processes measuring steps (default: the CPU count, at most 4)")
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = _Parser(prog="livestep", description="Find and measure setpoint step tests in "
                 "closed-loop controller data.")
@@ -139,18 +157,23 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--profile", metavar="TOML",
                    help="tolerance profile: judge every step; exit status 1 when any step"
                    " fails (or none is found)")
-    cols = a.add_argument_group("columns")
-    cols.add_argument("--time", default="t", metavar="COL", help="time column (default t)")
-    cols.add_argument("--setpoint", metavar="COL",
-                      help="setpoint column (default: 'setpoint' if present, else steps are"
-                      " found from the feedback alone)")
-    cols.add_argument("--feedback", default="feedback", metavar="COL",
-                      help="feedback column (default feedback)")
-    cols.add_argument("--time-unit", default="s", choices=sorted(TIME_UNITS),
-                      help="unit of the time column (default s)")
+    _add_column_options(a)
     _add_analysis_options(a)
-    a.add_argument("--jobs", type=int, default=min(os.cpu_count() or 1, 4), metavar="N",
-                   help="worker processes measuring steps (default: the CPU count, at most 4)")
+    _add_jobs_option(a)
+
+    rep = sub.add_parser("report", help="a self-contained HTML report of a recording, with"
+                         " plots")
+    rep.add_argument("file", help="recording: CSV with a header row, optionally gzip-compressed")
+    rep.add_argument("-o", "--output", metavar="HTML",
+                     help="report file (default: the recording's name with -report.html, in"
+                     " the current folder; replaced if it exists)")
+    rep.add_argument("--profile", metavar="TOML",
+                     help="tolerance profile: judge every step and show its limits")
+    rep.add_argument("--png", metavar="DIR",
+                     help="also write every plot as a PNG file into DIR (made if needed)")
+    _add_column_options(rep)
+    _add_analysis_options(rep)
+    _add_jobs_option(rep)
 
     live = sub.add_parser("live", help="measure steps live from a serial port or URL,"
                           " recording everything")
@@ -246,6 +269,50 @@ def gate_status(verdicts: Sequence[StepVerdict]) -> int:
     return EXIT_OK
 
 
+def _report(args: argparse.Namespace) -> int:
+    from dataclasses import replace
+
+    profile = load_profile(args.profile) if args.profile else None
+    settings = replace(_analysis_settings(args, profile), keep_windows=True)
+    reader = RecordingReader(args.file, ColumnMap(
+        time=args.time, setpoint=args.setpoint, feedback=args.feedback,
+        time_unit=args.time_unit))
+    span: list[float] = []
+
+    def chunks() -> Iterator[SampleChunk]:
+        for chunk in read_ahead(reader):
+            if not span:
+                span.append(float(chunk.t[0]))
+            yield chunk
+            span[1:] = [float(chunk.t[-1])]
+
+    results = list(analyze_chunks(chunks(), settings, has_setpoint=reader.has_setpoint,
+                                  workers=args.jobs))
+    st = reader.stats
+    notes = []
+    if st.bad:
+        notes.append(f"skipped {st.bad} bad data rows (first at line {st.first_bad_line})")
+    if st.repeated_time:
+        notes.append(f"dropped {st.repeated_time} rows repeating the previous timestamp")
+    if not reader.has_setpoint:
+        notes.append("no setpoint column: steps found from the feedback alone")
+
+    from livestep.reports import session_info, write_report
+
+    info = session_info(args.file, metadata=reader.metadata, samples=st.good,
+                        first_t=span[0] if span else None, last_t=span[-1] if span else None,
+                        notes=tuple(notes))
+    name = Path(args.file).name.removesuffix(".gz").removesuffix(".csv")
+    out = Path(args.output or f"{name}-report.html")
+    write_report(out, results, info, profile, args.png, measure=settings.measure)
+    summary = f"{len(results)} steps"
+    if profile is not None:
+        from livestep.verdict import judge
+        summary = verdict_summary([judge(r, profile).verdict for r in results], profile.name)
+    print(f"livestep: wrote {out} ({summary})", file=sys.stderr)
+    return EXIT_OK
+
+
 def _live(args: argparse.Namespace) -> int:
     from livestep.sources.serial_port import PortSettings
 
@@ -292,7 +359,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit status."""
     try:
         args = build_parser().parse_args(argv)
-        command = {"analyze": _analyze, "live": _live, "replay": _replay, "ports": _ports}
+        command = {"analyze": _analyze, "report": _report, "live": _live, "replay": _replay,
+                   "ports": _ports}
         return command[args.command](args)
     except InputError as exc:
         print(f"livestep: error: {exc}", file=sys.stderr)

@@ -28,7 +28,7 @@ _RC = {"svg.fonttype": "none", "svg.hashsalt": "livestep", "font.size": 8.5,
        "legend.fontsize": 7.5, "legend.framealpha": 0.9}
 _STEP_SIZE = (7.2, 3.3)  # inches
 _TREND_SIZE = (3.6, 2.3)
-#: marker of a trend point by verdict: filled circle, open triangle, a big cross
+#: marker of a trend point by verdict: small circle, triangle, a big cross
 _VERDICT_MARKERS = {"pass": ("o", "black", 4.0), "warn": ("^", "tab:orange", 6.5),
                     "fail": ("X", "tab:red", 8.0)}
 
@@ -46,6 +46,21 @@ def _view_end(result: StepResult, span: float) -> float:
         reach = max(2.0 * m.settling_time, 4.0 * ((m.rise_start or 0.0) + (m.rise_time or 0.0)))
         return min(span, reach)
     return span
+
+
+def _thin(t: np.ndarray, y: np.ndarray, most: int = 4000) -> tuple[np.ndarray, np.ndarray]:
+    """At most about ``most`` points of a long trace: the lowest and highest sample of each
+    run of samples, in time order, so the drawn envelope (noise, spikes) is unchanged."""
+    if t.size <= most:
+        return t, y
+    k = -(-t.size // (most // 2))
+    n = t.size // k * k
+    runs = y[:n].reshape(-1, k)
+    base = np.arange(0, n, k)[:, None]
+    picks = np.sort(np.hstack((base + runs.argmin(axis=1)[:, None],
+                               base + runs.argmax(axis=1)[:, None])), axis=1).ravel()
+    picks = np.concatenate((picks, np.arange(n, t.size)))
+    return t[picks], y[picks]
 
 
 def step_figure(result: StepResult, *, settling_band: float = 2.0,
@@ -67,9 +82,10 @@ def step_figure(result: StepResult, *, settling_band: float = 2.0,
         start = max(float(t[0]), -0.1 * end)
         shown = (t >= start) & (t <= end)
         if w.setpoint is not None:
-            ax.plot(t[shown], w.setpoint[shown], color="0.45", linestyle=(0, (5, 2)),
+            ax.plot(*_thin(t[shown], w.setpoint[shown]), color="0.45", linestyle=(0, (5, 2)),
                     linewidth=1.3, drawstyle="steps-post", label="setpoint")
-        ax.plot(t[shown], w.feedback[shown], color="black", linewidth=0.8, label="feedback")
+        ax.plot(*_thin(t[shown], w.feedback[shown]), color="black", linewidth=0.8,
+                label="feedback")
         amp = m.amplitude
         half = abs(amp) * settling_band / 100.0
         ax.fill_between([0.0, end], m.final - half, m.final + half, color="0.8", alpha=0.6,
@@ -109,17 +125,20 @@ def step_figure(result: StepResult, *, settling_band: float = 2.0,
 
 @dataclass(frozen=True)
 class TrendPoint:
-    """One step's value of a metric (``None``: undefined for that step) and its verdict."""
+    """One step's value of a metric (``None``: undefined for that step), its verdict on
+    that metric and the limits that applied to it (metric's units, ``None``: no limit)."""
 
     index: int
     value: float | None
     verdict: str | None = None
+    low: float | None = None
+    high: float | None = None
 
 
-def trend_figure(points: Sequence[TrendPoint], *, label: str, unit: str,
-                 low: float | None = None, high: float | None = None) -> Figure:
-    """A metric against the step index, with the limits ``low`` and ``high`` (the
-    metric's units) as lines; a step's marker shows its verdict on this metric."""
+def trend_figure(points: Sequence[TrendPoint], *, label: str, unit: str) -> Figure:
+    """A metric against the step index, each step's marker showing its verdict on this
+    metric, with the low and high limits drawn as lines (stepping where a ``[[when]]``
+    section gives some steps other limits)."""
     with _style():
         fig = Figure(figsize=_TREND_SIZE, layout="constrained")
         ax = fig.add_subplot()
@@ -127,24 +146,26 @@ def trend_figure(points: Sequence[TrendPoint], *, label: str, unit: str,
         ax.plot([p.index for p in known], [p.value for p in known], color="0.4",
                 linewidth=0.8)
         for verdict, (marker, colour, size) in _VERDICT_MARKERS.items():
-            sel = [p for p in known if (p.verdict or "pass") == verdict]
+            sel = [p for p in known if p.verdict == verdict]
             if sel:
                 ax.plot([p.index for p in sel], [p.value for p in sel], linestyle="none",
                         marker=marker, color=colour, markeredgecolor="black",
                         markersize=size, label=verdict)
-        other = [p for p in known if p.verdict not in (None, *_VERDICT_MARKERS)]
-        if other:
-            ax.plot([p.index for p in other], [p.value for p in other], linestyle="none",
-                    marker="s", markerfacecolor="white", markeredgecolor="black",
-                    label="not judged")
-        for limit, style, name in ((low, "--", "low limit"), (high, (0, (6, 2, 1, 2)),
-                                                               "high limit")):
-            if limit is not None:
-                ax.axhline(limit, color="black", linestyle=style, linewidth=1.0, label=name)
+        unjudged = [p for p in known if p.verdict not in _VERDICT_MARKERS]
+        if unjudged:
+            ax.plot([p.index for p in unjudged], [p.value for p in unjudged],
+                    linestyle="none", marker="o", color="black", markersize=4.0)
+        x = [p.index for p in points]
+        for attr, style, name in (("low", "--", "min"), ("high", (0, (6, 2, 1, 2)), "max")):
+            ys = [np.nan if getattr(p, attr) is None else getattr(p, attr) for p in points]
+            if not all(np.isnan(ys)):
+                ax.plot(x, ys, color="black", linestyle=style, linewidth=1.0,
+                        drawstyle="steps-mid", label=name)
         ax.set_xlabel("step")
         ax.set_ylabel(f"{label}, {unit}" if unit else label)
         ax.xaxis.get_major_locator().set_params(integer=True)
-        if low is not None or high is not None or len({p.verdict for p in known}) > 1:
+        ax.ticklabel_format(axis="y", useOffset=False)
+        if ax.get_legend_handles_labels()[0]:
             ax.legend(loc="best", fontsize=6.5)
     return fig
 
