@@ -297,9 +297,9 @@ def _report(args: argparse.Namespace) -> int:
     if not reader.has_setpoint:
         notes.append("no setpoint column: steps found from the feedback alone")
 
-    from livestep.reports import session_info, write_report
+    from livestep.reports import read_session_info, write_report
 
-    info = session_info(args.file, metadata=reader.metadata, samples=st.good,
+    info = read_session_info(args.file, metadata=reader.metadata, samples=st.good,
                         first_t=span[0] if span else None, last_t=span[-1] if span else None,
                         notes=tuple(notes))
     name = Path(args.file).name.removesuffix(".gz").removesuffix(".csv")

@@ -69,7 +69,7 @@ def write_report(path: str | Path, results: Sequence[StepResult], session_info: 
 
     ``results`` need their samples for the step plots (analyse with
     ``AnalysisSettings(keep_windows=True)``; a step without them gets no plot).
-    ``session_info`` describes the recording (:func:`livestep.reports.session_info`).
+    ``session_info`` describes the recording (:func:`livestep.reports.read_session_info`).
     With ``profile`` every step is judged against it. ``measure``: the settings the
     steps were measured with (their settling band and rise levels are drawn; default
     ``MeasureSettings()``). With

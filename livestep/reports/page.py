@@ -231,8 +231,8 @@ def _summary(c: ReportContent) -> str:
     out.append('<p class="muted">std: sample standard deviation. Cp = (max - min limit) /'
                " 6 std, Cpk = nearest limit's distance from the mean / 3 std (one limit: that"
                " side alone; ISO 22514-2). Taken over individual steps without subgroups,"
-               " which SPC manuals call Pp and Ppk. '-' where the group's steps have"
-               " different limits.</p></section>")
+               " which SPC manuals call Pp and Ppk. '-' without a limit, with fewer than two"
+               " values, or where the group's steps have different limits.</p></section>")
     return "".join(out)
 
 
@@ -274,7 +274,7 @@ def _step(c: ReportContent, r: StepResult, v: StepVerdict | None) -> str:
     svg = c.step_svgs.get(r.index)
     fig = (f"<figure>{svg}<figcaption>Setpoint (dashed) and feedback (solid) from the step"
            " instant; hatched: the settling band; dotted: the rise reference levels and"
-           " 50 %; circles: the rise-level crossings; triangle: the peak; dashed vertical:"
+           " 50 %; circles: the rise-level crossings; triangle: the peak; dotted vertical:"
            " settled; dash-dot: the fitted model.</figcaption></figure>" if svg else
            '<p class="muted">No plot: the step\'s samples were not kept.</p>')
     checks = {ch.quantity: ch for ch in v.checks} if v is not None else {}

@@ -113,7 +113,7 @@ def step_figure(result: StepResult, *, settling_band: float = 2.0,
                     markersize=7, color="black",
                     label=f"peak {1e3 * m.peak_time:.3g} ms, {m.overshoot_pct:.3g} %")
         if m.settling_time is not None:
-            ax.axvline(m.settling_time, color="black", linestyle="--", linewidth=0.8,
+            ax.axvline(m.settling_time, color="black", linestyle=":", linewidth=1.4,
                        label=f"settled {1e3 * m.settling_time:.3g} ms")
         ax.set_xlim(start, end)
         ax.set_xlabel("time from the step instant, s")
@@ -171,17 +171,19 @@ def trend_figure(points: Sequence[TrendPoint], *, label: str, unit: str) -> Figu
 
 
 _ID_REF = re.compile(r'(\bid="|url\(#|href="#)([^")]+)')
+_METADATA = re.compile(r"\s*<metadata>.*?</metadata>", re.DOTALL)
 
 
 def svg_text(fig: Figure, prefix: str) -> str:
     """The figure as an ``<svg>`` element to put inline in HTML: no XML declaration or
     doctype, every id (and every reference to one) prefixed with ``prefix`` so several
-    plots in one page never share an id, and no date, so the output is reproducible."""
+    plots in one page never share an id, and no metadata block (no date: the output is
+    reproducible)."""
     buf = io.StringIO()
     with _style():
         fig.savefig(buf, format="svg", metadata={"Date": None})
     text = buf.getvalue()
-    text = text[text.index("<svg"):]
+    text = _METADATA.sub("", text[text.index("<svg"):])
     return _ID_REF.sub(lambda mo: f"{mo.group(1)}{prefix}{mo.group(2)}", text)
 
 

@@ -17,7 +17,7 @@ from typing import Any
 
 from livestep.errors import InputError
 
-__all__ = ["SessionInfo", "comment_lines", "session_info"]
+__all__ = ["SessionInfo", "comment_lines", "read_session_info"]
 
 _BLOCK = 1 << 22
 
@@ -82,7 +82,7 @@ def comment_lines(path: str | Path) -> Iterator[str]:
                 return
 
 
-def session_info(path: str | Path, *, metadata: dict[str, str], samples: int,
+def read_session_info(path: str | Path, *, metadata: dict[str, str], samples: int,
                  first_t: float | None, last_t: float | None,
                  notes: tuple[str, ...] = ()) -> SessionInfo:
     """The facts of a recording: its header ``metadata`` (as

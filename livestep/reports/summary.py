@@ -18,7 +18,7 @@ from livestep.profile import Limit, Profile
 from livestep.quantities import QUANTITIES
 
 __all__ = ["DEFAULT_QUANTITIES", "GroupStats", "MetricStats", "display_unit",
-           "group_statistics", "report_quantities"]
+           "group_statistics", "metric_stats", "report_quantities"]
 
 #: Shown in every report, after the quantities the profile limits.
 DEFAULT_QUANTITIES = ("rise_time", "overshoot_pct", "settling_time", "steady_state_error_pct",
@@ -59,8 +59,8 @@ class MetricStats:
     (USL - LSL) / 6 s and ``cpk`` = min(USL - mean, mean - LSL) / 3 s, the one side
     alone when only one limit is set (ISO 22514-2; AIAG SPC manual; from memory).
     With s the overall standard deviation of individual steps and no subgroups, AIAG
-    would call these Pp and Ppk. ``None`` when the group's steps do not all have the
-    same limits, or fewer than two values."""
+    would call these Pp and Ppk. ``None`` without limits (in a group: when its steps do
+    not all have the same limits) or with fewer than two values."""
 
     count: int
     mean: float | None
@@ -82,22 +82,23 @@ class GroupStats:
     stats: dict[str, MetricStats]
 
 
-def _stats(values: list[float], limits: set[tuple[float | None, float | None]]) -> MetricStats:
+def metric_stats(values: Sequence[float], low: float | None = None,
+                 high: float | None = None) -> MetricStats:
+    """Statistics of some values of one quantity and their capability against the limits
+    ``low`` and ``high`` (either may be ``None``)."""
     n = len(values)
     if n == 0:
-        return MetricStats(0, None, None, None, None, None, None, None, None)
+        return MetricStats(0, None, None, None, None, low, high, None, None)
     x = np.asarray(values, dtype=float)
     mean = float(x.mean())
     std = float(x.std(ddof=1)) if n > 1 else None
-    low = high = cp = cpk = None
-    if len(limits) == 1:
-        low, high = next(iter(limits))
-        if std is not None and std > 0 and (low is not None or high is not None):
-            sides = [s for s in ((high - mean) if high is not None else None,
-                                 (mean - low) if low is not None else None) if s is not None]
-            cpk = min(sides) / (3.0 * std)
-            if low is not None and high is not None:
-                cp = (high - low) / (6.0 * std)
+    cp = cpk = None
+    if std is not None and std > 0 and (low is not None or high is not None):
+        cpk = min(d for d in ((None if high is None else high - mean),
+                              (None if low is None else mean - low)) if d is not None)
+        cpk /= 3.0 * std
+        if low is not None and high is not None:
+            cp = (high - low) / (6.0 * std)
     return MetricStats(n, mean, std, float(x.min()), float(x.max()), low, high, cp, cpk)
 
 
@@ -129,6 +130,8 @@ def group_statistics(results: Sequence[StepResult], quantities: Sequence[str],
                 lim = next((x for x in limits_of(r) if x.quantity == q), None) \
                     if limits_of else None
                 limits.add((lim.low, lim.high) if lim else (None, None))
-            stats[q] = _stats(values, limits)
+            # One set of limits for the whole group, or none (no capability indices).
+            low, high = next(iter(limits)) if len(limits) == 1 else (None, None)
+            stats[q] = metric_stats(values, low, high)
         out.append(GroupStats(name, len(members), stats))
     return out
