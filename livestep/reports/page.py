@@ -273,7 +273,7 @@ def _step(c: ReportContent, r: StepResult, v: StepVerdict | None) -> str:
             f"{e(sp)}, amplitude {m.amplitude:+.4g}, window ended: {e(r.end_reason)}.</p>")
     svg = c.step_svgs.get(r.index)
     fig = (f"<figure>{svg}<figcaption>Setpoint (dashed) and feedback (solid) from the step"
-           " instant; hatched: the settling band; dotted: the rise reference levels and"
+           " instant; shaded: the settling band; dotted: the rise reference levels and"
            " 50 %; circles: the rise-level crossings; triangle: the peak; dotted vertical:"
            " settled; dash-dot: the fitted model.</figcaption></figure>" if svg else
            '<p class="muted">No plot: the step\'s samples were not kept.</p>')

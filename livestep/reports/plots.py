@@ -117,7 +117,7 @@ def step_figure(result: StepResult, *, settling_band: float = 2.0,
                        label=f"settled {1e3 * m.settling_time:.3g} ms")
         ax.set_xlim(start, end)
         ax.set_xlabel("time from the step instant, s")
-        ax.set_ylabel("setpoint, feedback")
+        ax.set_ylabel("feedback" if w.setpoint is None else "setpoint, feedback")
         ax.set_title(title or f"step {result.index} at t = {m.t_step:.4g} s", loc="left")
         ax.legend(loc="best")
     return fig
