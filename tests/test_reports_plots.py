@@ -129,7 +129,7 @@ def test_trend_figure_limits_and_verdict_markers() -> None:
     assert fail.get_marker() == "X" and list(fail.get_xdata()) == [0]
     assert list(_line(fig, "warn").get_xdata()) == [1]
     assert list(_line(fig, "pass").get_xdata()) == [3]
-    assert ax.get_ylabel() == "overshoot, %"
+    assert ax.get_title(loc="left") == "overshoot, %"
 
 
 def test_thin_keeps_the_envelope_of_a_long_trace() -> None:
