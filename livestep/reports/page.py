@@ -239,7 +239,7 @@ def _summary(c: ReportContent) -> str:
 def _trends(c: ReportContent) -> str:
     if not c.trend_svgs:
         return ""
-    figs = "".join(f"<figure>{svg}<figcaption>{e(_label(q))} by step</figcaption></figure>"
+    figs = "".join(f'<figure aria-label="{e(_label(q))} by step">{svg}</figure>'
                    for q, svg in c.trend_svgs)
     return ('<section id="trends"><h2>Trends over the session</h2><p>Each metric against the'
             " step index, with its limits as lines (dashed: min, dash-dot: max); a failed"
