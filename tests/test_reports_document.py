@@ -240,6 +240,12 @@ def test_report_without_profile_or_steps(tmp_path: Path) -> None:
     page = _parse(out.read_text())
     assert page.articles == [] and "No step was found" in page.text["summary"]
     assert "not judged" in page.text["profile"]
+    prof = tmp_path / "p.toml"
+    prof.write_text(PROFILE)
+    assert main(["report", str(rec), "-o", str(out), "--profile", str(prof),
+                 "--png", str(tmp_path / "png")]) == 0
+    assert "svg" not in _parse(out.read_text()).tags  # no empty trend plots
+    assert list((tmp_path / "png").iterdir()) == []
 
 
 def test_default_output_name_and_bad_input(made: dict[str, Path], tmp_path: Path,

@@ -97,7 +97,7 @@ def write_report(path: str | Path, results: Sequence[StepResult], session_info: 
             if png is not None:
                 save_png(fig, png / f"step-{r.index:03d}.png")
         trend_svgs = []
-        for q in quantities:
+        for q in quantities if results else ():  # no steps: nothing to plot
             fig = trend_figure(_trend_points(results, q, verdicts), label=QUANTITIES[q].label,
                                unit=display_unit(q)[1])
             trend_svgs.append((q, svg_text(fig, f"t-{q}-")))
