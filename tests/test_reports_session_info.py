@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import gzip
 import json
+import os
 from pathlib import Path
 
 import pytest
@@ -60,6 +61,8 @@ def test_a_recording_without_live_lines(tmp_path: Path) -> None:
     info = _info(path)
     assert info.counters is None and info.segments == 0 and info.metadata == ()
     assert info.start is None and info.duration == 1.0
+    os.utime(path, (1_700_000_000, 1_700_000_000))
+    assert _info(path).modified == "2023-11-14T22:13:20+00:00"  # date -u -d @1700000000
     # a broken counters line is ignored, not an error
     path.write_text("t,feedback\n0,1\n1,1\n# counters: {not json\n")
     assert _info(path).counters is None

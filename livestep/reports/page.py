@@ -129,6 +129,8 @@ def _session(c: ReportContent) -> str:
     s = c.session
     rows = [("file", f"<code>{e(s.source)}</code>")]
     rows += [(e(_META_LABELS.get(k, k)), e(v)) for k, v in s.metadata]
+    if s.start is None and s.modified is not None:
+        rows.append(("file last modified (UTC)", e(s.modified)))
     rows += [("samples", e(f"{s.samples:,}")),
              ("duration", "-" if s.duration is None else e(f"{s.duration:.3f} s")),
              ("sample rate", "-" if s.sample_rate is None else e(f"{s.sample_rate:.4g} Hz")),

@@ -8,6 +8,7 @@ and a final ``# counters: {json}`` line. :func:`comment_lines` finds them all.
 
 from __future__ import annotations
 
+import datetime as dt
 import gzip
 import json
 from collections.abc import Iterator
@@ -28,7 +29,9 @@ class SessionInfo:
     ``sample_rate`` in Hz (samples per second over the duration); ``metadata``: the
     recording's ``# key: value`` lines before the header, in order; ``counters``: the
     link counters of a live recording (``None`` for other files); ``segments``: device
-    restarts marked in the recording; ``notes``: what the reader skipped or dropped."""
+    restarts marked in the recording; ``notes``: what the reader skipped or dropped;
+    ``modified``: the file's modification time (ISO 8601, UTC), a date for recordings
+    without a ``start`` line."""
 
     source: str
     samples: int
@@ -39,6 +42,7 @@ class SessionInfo:
     segments: int = 0
     states: tuple[str, ...] = ()
     notes: tuple[str, ...] = ()
+    modified: str | None = None
 
     @property
     def start(self) -> str | None:
@@ -107,6 +111,8 @@ def read_session_info(path: str | Path, *, metadata: dict[str, str], samples: in
     if first_t is not None and last_t is not None and last_t > first_t:
         duration = last_t - first_t
         rate = (samples - 1) / duration if samples > 1 else None
+    mtime = dt.datetime.fromtimestamp(Path(path).stat().st_mtime, dt.UTC)
     return SessionInfo(source=str(path), samples=samples, duration=duration, sample_rate=rate,
                        metadata=tuple(metadata.items()), counters=counters, segments=segments,
-                       states=tuple(states), notes=notes)
+                       states=tuple(states), notes=notes,
+                       modified=mtime.isoformat(timespec="seconds"))
