@@ -297,8 +297,9 @@ def _steps(c: ReportContent) -> str:
     vs: Sequence[StepVerdict | None] = c.verdicts if c.verdicts is not None \
         else [None] * len(c.results)
     pairs = list(zip(c.results, vs, strict=True))
-    order = [p for p in pairs if p[1] is not None and p[1].verdict == FAIL]
-    order += [p for p in pairs if p not in order]
+    failed = [p[1] is not None and p[1].verdict == FAIL for p in pairs]
+    order = [p for p, f in zip(pairs, failed, strict=True) if f]
+    order += [p for p, f in zip(pairs, failed, strict=True) if not f]
     index = "".join(f'<li><a href="#{_anchor(r)}">step {int(r.index)}</a>'
                     f" {_verdict(v.verdict) if v is not None else ''}</li>" for r, v in pairs)
     return ('<section id="steps"><h2>Steps</h2>'
