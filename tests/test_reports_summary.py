@@ -15,30 +15,30 @@ from _signals import WN, make_step
 
 from livestep.analysis import AnalysisSettings, StepResult, analyze_chunks
 from livestep.profile import parse_profile
-from livestep.reports.summary import group_statistics, metric_stats, report_quantities
+from livestep.reports.summary import cp, metric_stats, report_quantities, session_statistics
 from livestep.samples import SampleChunk
 
 
 def test_capability_indices_hand_worked() -> None:
     # values 1..5: mean 3, s = sqrt(((-2)^2 + (-1)^2 + 0 + 1 + 4) / 4) = sqrt(2.5)
     s = math.sqrt(2.5)
-    st = metric_stats([1.0, 2.0, 3.0, 4.0, 5.0], 0.0, 8.0)
-    assert (st.count, st.mean, st.min, st.max) == (5, 3.0, 1.0, 5.0)
+    st = metric_stats("q", [1.0, 2.0, None, 3.0, 4.0, 5.0, math.nan], 0.0, 8.0)
+    assert (st.count, st.missing, st.mean, st.min, st.max) == (5, 2, 3.0, 1.0, 5.0)
     assert st.std == pytest.approx(s)
-    assert st.cp == pytest.approx(8.0 / (6 * s))        # 0.8433
+    assert cp(st) == pytest.approx(8.0 / (6 * s))       # 0.8433
     assert st.cpk == pytest.approx(3.0 / (3 * s))       # nearer limit: LSL, 3 away: 0.6325
-    upper = metric_stats([1.0, 2.0, 3.0, 4.0, 5.0], None, 8.0)
-    assert upper.cp is None and upper.cpk == pytest.approx(5.0 / (3 * s))  # 1.054
+    upper = metric_stats("q", [1.0, 2.0, 3.0, 4.0, 5.0], None, 8.0)
+    assert cp(upper) is None and upper.cpk == pytest.approx(5.0 / (3 * s))  # 1.054
     # a mean outside the limit gives a negative Cpk
-    assert metric_stats([11.0, 12.0, 13.0], None, 10.0).cpk == pytest.approx(-2.0 / 3.0)
+    assert metric_stats("q", [11.0, 12.0, 13.0], None, 10.0).cpk == pytest.approx(-2.0 / 3.0)
 
 
 def test_statistics_without_enough_values_or_limits() -> None:
-    one = metric_stats([4.0], None, 10.0)
+    one = metric_stats("q", [4.0], None, 10.0)
     assert one.std is None and one.cpk is None and one.mean == 4.0
-    assert metric_stats([1.0, 2.0]).cpk is None
-    assert metric_stats([2.0, 2.0], None, 3.0).cpk is None  # s = 0: undefined
-    assert metric_stats([]).count == 0
+    assert metric_stats("q", [1.0, 2.0]).cpk is None
+    assert metric_stats("q", [2.0, 2.0], None, 3.0).cpk is None  # s = 0: undefined
+    assert metric_stats("q", [None]).count == 0
 
 
 @pytest.fixture(scope="module")
@@ -60,17 +60,17 @@ def test_groups_per_direction_and_tag(results: list[StepResult]) -> None:
     profile = parse_profile('[limits]\novershoot_pct = { max = 50 }\n'
                             '[[when]]\ndirection = "down"\n'
                             '[when.limits]\novershoot_pct = { max = 60 }\n')
-    groups = {g.name: g for g in group_statistics(results, ["overshoot_pct"],
-                                                  profile.limits_for)}
-    assert list(groups) == ["all steps", "down", "up", "gains=soft", "gains=stiff"]
-    assert groups["all steps"].stats["overshoot_pct"].mean == 25.0
-    soft = groups["gains=soft"].stats["overshoot_pct"]
+    groups = {g.key: g for g in session_statistics(results, profile)}
+    assert list(groups) == ["all", "up", "down", "gains=soft", "gains=stiff"]
+    assert groups["gains=soft"].by == "tag" and groups["gains=soft"].steps == (0, 1)
+    overshoot = {k: g.get("overshoot_pct") for k, g in groups.items()}
+    assert overshoot["all"].mean == 25.0
     # 10, 20: mean 15, s = sqrt(50) = 7.071; Cpk = (50 - 15) / (3 s) = 1.650
-    assert soft.cpk == pytest.approx(35.0 / (3 * math.sqrt(50.0)))
+    assert overshoot["gains=soft"].cpk == pytest.approx(35.0 / (3 * math.sqrt(50.0)))
     # the down step has other limits than the up ones: no single Cpk for all steps
-    assert groups["all steps"].stats["overshoot_pct"].cpk is None
-    assert groups["up"].stats["overshoot_pct"].high == 50.0
-    assert groups["down"].count == 1 and groups["down"].stats["overshoot_pct"].cpk is None
+    assert overshoot["all"].cpk is None and overshoot["all"].high is None
+    assert overshoot["up"].high == 50.0
+    assert groups["down"].steps == (3,) and overshoot["down"].cpk is None
 
 
 def test_report_quantities_profile_first(results: list[StepResult]) -> None:

@@ -18,7 +18,7 @@ from livestep.quantities import QUANTITIES
 from livestep.reports.page import ReportContent, render_page
 from livestep.reports.plots import TrendPoint, save_png, step_figure, svg_text, trend_figure
 from livestep.reports.session_info import SessionInfo
-from livestep.reports.summary import display_unit, group_statistics, report_quantities
+from livestep.reports.summary import display_unit, report_quantities, session_statistics
 from livestep.verdict import StepVerdict, judge
 
 __all__ = ["write_report"]
@@ -105,8 +105,7 @@ def write_report(path: str | Path, results: Sequence[StepResult], session_info: 
                 save_png(fig, png / f"trend-{q}.png")
         content = ReportContent(
             results=results, session=session_info, measure=measure, quantities=quantities,
-            stats=group_statistics(results, quantities,
-                                   profile.limits_for if profile is not None else None),
+            stats=session_statistics(results, profile),
             step_svgs=step_svgs, trend_svgs=trend_svgs, profile=profile, verdicts=verdicts,
             generated=dt.datetime.now(dt.UTC).strftime("%Y-%m-%d %H:%M UTC"),
             version=__version__)

@@ -18,7 +18,7 @@ from livestep.measure import MeasureSettings
 from livestep.profile import Limit, Profile, Rule
 from livestep.quantities import QUANTITIES
 from livestep.reports.session_info import SessionInfo
-from livestep.reports.summary import GroupStats, display_unit
+from livestep.reports.summary import GroupStats, cp, display_unit
 from livestep.verdict import (
     FAIL,
     NOT_MEASURED,
@@ -218,18 +218,17 @@ def _summary(c: ReportContent) -> str:
     for g in c.stats:
         rows = []
         for q in c.quantities:
-            s = g.stats[q]
-            if s.count == 0:
+            s = g.get(q)
+            if s is None or s.count == 0:
                 continue
-            limits = _limits(q, s.low, s.high)
-            cells = [_value(q, s.mean), _value(q, s.std), _value(q, s.min), _value(q, s.max)]
+            cells = [_value(q, s.mean), _value(q, s.std), _value(q, s.min), _value(q, s.max),
+                     _limits(q, s.low, s.high), _num(cp(s), ".3g"), _num(s.cpk, ".3g")]
             rows.append(f"<tr><td>{e(_label(q))}</td><td class='n'>{s.count}</td>"
-                        + "".join(f'<td class="n">{e(x)}</td>' for x in cells)
-                        + f'<td class="n">{e(limits)}</td><td class="n">{e(_num(s.cp, ".3g"))}'
-                        f'</td><td class="n">{e(_num(s.cpk, ".3g"))}</td></tr>')
+                        + "".join(f'<td class="n">{e(x)}</td>' for x in cells) + "</tr>")
         if rows:
-            out.append(f"<h3>{e(g.name)} ({g.count} steps)</h3><table>{head}{''.join(rows)}"
-                       "</table>")
+            name = "all steps" if g.by == "all" else f"{g.by} {g.key}"
+            out.append(f"<h3>{e(name)} ({len(g.steps)} steps)</h3><table>{head}"
+                       f"{''.join(rows)}</table>")
     out.append('<p class="muted">std: sample standard deviation. Cp = (max - min limit) /'
                " 6 std, Cpk = nearest limit's distance from the mean / 3 std (one limit: that"
                " side alone; ISO 22514-2). Taken over individual steps without subgroups,"
