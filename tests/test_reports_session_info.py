@@ -64,5 +64,6 @@ def test_a_recording_without_live_lines(tmp_path: Path) -> None:
     os.utime(path, (1_700_000_000, 1_700_000_000))
     assert _info(path).modified == "2023-11-14T22:13:20+00:00"  # date -u -d @1700000000
     # a broken counters line is ignored, not an error
-    path.write_text("t,feedback\n0,1\n1,1\n# counters: {not json\n")
-    assert _info(path).counters is None
+    for junk in ("{not json", "[1, 2]"):
+        path.write_text(f"t,feedback\n0,1\n1,1\n# counters: {junk}\n")
+        assert _info(path).counters is None

@@ -140,7 +140,9 @@ def _session(c: ReportContent) -> str:
                  *c.measure.rise_levels)))]
     if s.counters is not None:
         k = s.counters
-        bad = ", ".join(f"{name}: {n}" for name, n in sorted(k.get("bad", {}).items()))
+        reasons = k.get("bad")
+        bad = ", ".join(f"{name}: {n}" for name, n in sorted(reasons.items())) \
+            if isinstance(reasons, dict) else ""
         rows += [("link: bytes, samples", e(f"{k.get('bytes', '-')}, {k.get('samples', '-')}")),
                  ("link: bad lines or frames", e(f"{k.get('bad_total', 0)}"
                                                  + (f" ({bad})" if bad else ""))),

@@ -103,6 +103,8 @@ def read_session_info(path: str | Path, *, metadata: dict[str, str], samples: in
                 counters = json.loads(value)
             except json.JSONDecodeError:
                 counters = None
+            if not isinstance(counters, dict):
+                counters = None
         elif key == "segment":
             segments += 1
         elif key == "state":
