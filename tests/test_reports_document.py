@@ -220,6 +220,8 @@ def test_hostile_text_is_escaped(made: dict[str, Path], tmp_path: Path) -> None:
     results = [replace(r, tags=((HOSTILE, HOSTILE),)) for r in results]
     info = read_session_info(rec, metadata={"source": HOSTILE}, samples=reader.stats.good,
                              first_t=0.0, last_t=7.5)
+    info = replace(info, counters={"bytes": HOSTILE, "bad": {HOSTILE: 1}},
+                   states=(HOSTILE,), notes=(HOSTILE,))
     profile = parse_profile(f"name = '''{HOSTILE}'''\n[limits]\novershoot_pct = {{ max = 10 }}\n")
     out = write_report(tmp_path / "hostile.html", results, info, profile)
     text = out.read_text()
