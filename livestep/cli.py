@@ -189,6 +189,9 @@ def _analyze(args: argparse.Namespace) -> int:
         time_unit=args.time_unit))
     results = list(analyze_chunks(read_ahead(reader), settings,
                                   has_setpoint=reader.has_setpoint, workers=args.jobs))
+    if reader.notes:
+        from livestep.tags import NoteTimeline, tag_results
+        results = tag_results(results, NoteTimeline(reader.notes))
     st = reader.stats
     notes = []
     if st.bad:

@@ -46,6 +46,7 @@ def step_record(r: StepResult) -> dict[str, Any]:
     rec["sample_period"] = m.sample_period
     rec["window_end"] = r.end_reason
     rec["warnings"] = list(r.warnings)
+    rec["tags"] = dict(r.tags)
     return rec
 
 

@@ -114,3 +114,25 @@ def test_rows_of_wrong_length_are_skipped_not_shifted(write_file):
     assert reader.stats.bad == 2 and reader.stats.first_bad_line == 12
     fb = np.concatenate([c.feedback for c in chunks])
     assert np.array_equal(fb, [k for k in range(40) if k not in (10, 11)])
+
+
+def test_notes_from_comment_lines_and_a_note_column(write_file):
+    rows = [f"{k * 0.001:.3f},{1.0 if k >= 5 else 0.0},{0.1 * k:.1f},{k}," for k in range(10)]
+    rows[0] += "gains=A"
+    rows[3] += "operator swapped the belt"
+    rows[6] = "0.005,bad,0.6,6,gains=B"  # a skipped row keeps its note (at the row before)
+    text = ("# note: 0.0005 load=empty\nt,setpoint,feedback,current,note\n" + rows[0] + "\n"
+            + "\n".join(rows[1:5]) + "\n# note: 0.0045 load=full\n" + "\n".join(rows[5:]) + "\n")
+    reader, chunks = read_all(write_file("n.csv", text))
+    assert reader.extra_names == ["current"] and reader.stats.bad == 1
+    assert np.array_equal(np.concatenate([c.extras["current"] for c in chunks]),
+                          [0, 1, 2, 3, 4, 5, 7, 8, 9])
+    got = sorted((n.t, n.name, n.value) for n in reader.notes)
+    assert got == [(0.0, "gains", "A"), (0.0005, "load", "empty"),
+                   (0.003, "note", "operator swapped the belt"), (0.0045, "load", "full"),
+                   (0.005, "gains", "B")]
+
+
+def test_note_column_cannot_be_a_role(write_file):
+    with pytest.raises(InputError, match="text notes"):
+        RecordingReader(write_file("n.csv", "t,note\n0,1\n"), ColumnMap(feedback="note"))

@@ -35,7 +35,7 @@ def counters_table(c: LinkCounters) -> Table:
     table.add_column("counter")
     table.add_column("value", justify="right")
     for key in ("bytes", "samples", "bad_total", "gaps", "lost", "resyncs", "reconnects",
-                "log_lines", "restarts"):
+                "log_lines", "notes", "restarts"):
         table.add_row(key.replace("_", " "), str(snap[key]))
     for reason, n in sorted(snap["bad"].items()):
         table.add_row(f"  bad: {reason}", str(n))
