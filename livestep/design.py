@@ -34,12 +34,13 @@ from livestep import second_order as so
 from livestep.model_fit import ModelFit
 from livestep.profile import Limit
 
-__all__ = ["ASSUMPTION", "DesignCheck", "DesignRegion", "assess", "design_checks",
-           "design_region"]
+__all__ = ["ASSUMPTION", "SHORT_ASSUMPTION", "DesignCheck", "DesignRegion", "assess",
+           "design_checks", "design_region"]
 
 #: Said wherever guidance is shown.
 ASSUMPTION = ("assumes a dominant second-order response (standard second-order relations);"
               " guidance on where the closed-loop poles should be, not a tuning rule")
+SHORT_ASSUMPTION = "if the response is dominantly second order; guidance, not a tuning rule"
 
 
 @dataclass(frozen=True)
@@ -106,12 +107,14 @@ def _short(value: float, needed: float) -> str:
     return f"{100.0 * (needed - value) / needed:.0f} % short"
 
 
-def _budget(limit: float, dead: float, what: str) -> tuple[float | None, str]:
+def _budget(limit: float, dead: float, what: str,
+            band: str = "") -> tuple[float | None, str]:
     """The time left to the poles after the dead time, and the words saying so."""
-    if dead <= 0.0:
-        return limit, f"{what} <= {_ms(limit)}"
+    notes = [band] if band else []
+    if dead > 0.0:
+        notes.append(f"less {_ms(dead)} dead time")
+    words = f"{what} <= {_ms(limit)}" + (f" ({', '.join(notes)})" if notes else "")
     left = limit - dead
-    words = f"{what} <= {_ms(limit)} ({_ms(max(left, 0.0))} after the {_ms(dead)} dead time)"
     return (left if left > 0 else None), words
 
 
@@ -129,13 +132,13 @@ def design_checks(model: ModelFit, region: DesignRegion) -> tuple[DesignCheck, .
         need = region.zeta_min
         why = f"overshoot <= {region.overshoot_max:g} %"
         met = zeta >= need
-        text = (f"damping ratio {zeta:.2f} meets >= {need:.2f} ({why})" if met else
-                f"damping ratio {zeta:.2f}, needs >= {need:.2f} for {why}"
-                f" (short by {need - zeta:.2f})")
+        text = (f"damping ratio {zeta:.2f} meets >= {need:.2f} for {why}" if met else
+                f"damping ratio {zeta:.2f}, needs >= {need:.2f} for {why}:"
+                f" short by {need - zeta:.2f}")
         out.append(DesignCheck("damping ratio", zeta, need, met, text))
     if region.settling_max is not None:
-        left, why = _budget(region.settling_max, dead, "settling")
-        why += f" in the {region.band_pct:g} % band"
+        left, why = _budget(region.settling_max, dead, "settling",
+                            f"{region.band_pct:g} % band")
         sigma = wn * (zeta - math.sqrt(zeta * zeta - 1.0)) if real else zeta * wn
         name = "slower pole (real poles)" if real else "decay rate zeta*wn"
         if left is None:
@@ -144,9 +147,9 @@ def design_checks(model: ModelFit, region: DesignRegion) -> tuple[DesignCheck, .
         else:
             need = so.settling_constant(region.band_pct) / left
             met = sigma >= need
-            text = (f"{name} {sigma:.3g} 1/s meets >= {need:.3g} 1/s ({why})" if met else
-                    f"{name} {sigma:.3g} 1/s, needs >= {need:.3g} 1/s for {why}"
-                    f" ({_short(sigma, need)})")
+            text = (f"{name} {sigma:.3g} 1/s meets >= {need:.3g} 1/s for {why}" if met else
+                    f"{name} {sigma:.3g} 1/s, needs >= {need:.3g} 1/s for {why}:"
+                    f" {_short(sigma, need)}")
             out.append(DesignCheck("decay rate", sigma, need, met, text))
     if region.peak_max is not None:
         left, why = _budget(region.peak_max, dead, "peak time")
@@ -162,9 +165,9 @@ def design_checks(model: ModelFit, region: DesignRegion) -> tuple[DesignCheck, .
             wd = wn * math.sqrt(1.0 - zeta * zeta)
             need = math.pi / left
             met = wd >= need
-            text = (f"damped frequency {wd:.3g} rad/s meets >= {need:.3g} rad/s ({why})"
+            text = (f"damped frequency {wd:.3g} rad/s meets >= {need:.3g} rad/s for {why}"
                     if met else f"damped frequency {wd:.3g} rad/s, needs >= {need:.3g} rad/s"
-                    f" for {why} ({_short(wd, need)})")
+                    f" for {why}: {_short(wd, need)}")
             out.append(DesignCheck("damped frequency", wd, need, met, text))
     return tuple(out)
 

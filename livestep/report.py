@@ -205,6 +205,11 @@ def statistics_records(groups: Sequence[GroupStats]) -> list[dict[str, Any]]:
              "metrics": {m.quantity: _stats_record(m) for m in g.metrics}} for g in groups]
 
 
+#: Quantities of the statistics table and their short names there (all of them: --json).
+STATISTICS_ROWS = {"rise_time": "rise", "delay_time": "delay", "peak_time": "peak",
+                   "overshoot_pct": "OS", "undershoot_pct": "US", "settling_time": "settle",
+                   "steady_state_error_pct": "SSE", "iae": "IAE", "zeta": "zeta", "wn": "wn",
+                   "dead_time": "dead", "fit_r2": "R^2"}
 #: Quantities of the by-group table (all of them: --json).
 GROUP_COLUMNS = ("rise_time", "overshoot_pct", "settling_time", "steady_state_error_pct",
                  "zeta", "wn")
@@ -217,22 +222,26 @@ def render_statistics(groups: Sequence[GroupStats], console: Console) -> None:
         return
     every = groups[0]
     limited = any(m.low is not None or m.high is not None for m in every.metrics)
-    caption = f"{_UNIT_CAPTION}; s: sample standard deviation (n - 1)"
+    caption = ("delay: to 50 %; OS, US: overshoot, undershoot; SSE: |steady-state error|;"
+               f" {_UNIT_CAPTION}; s: sample standard deviation (n - 1); all quantities and"
+               " groups: --json")
     if limited:
         caption += "; Cpk = min(USL - mean, mean - LSL) / 3s, one-sided with one limit"
     table = Table(title=f"statistics over {len(every.steps)} steps", box=box.SIMPLE_HEAD,
                   pad_edge=False, header_style="bold", padding=(0, 1), collapse_padding=True,
                   show_edge=False, caption=caption)
-    table.add_column("quantity", no_wrap=True)
+    table.add_column("", no_wrap=True)
     table.add_column("unit", no_wrap=True)
     for name in ("n", "mean", "s", "min", "max", *(("limits", "Cpk") if limited else ())):
         table.add_column(name, justify="right", no_wrap=True)
     for m in every.metrics:
         q = m.quantity
-        cells = [q, _scaled(q)[1], str(m.count), _shown(q, m.mean), _shown(q, m.std, ".3g"),
-                 _shown(q, m.min), _shown(q, m.max)]
+        if q not in STATISTICS_ROWS:
+            continue
+        cells = [STATISTICS_ROWS[q], _scaled(q)[1], str(m.count), _shown(q, m.mean, ".3g"),
+                 _shown(q, m.std, ".3g"), _shown(q, m.min, ".3g"), _shown(q, m.max, ".3g")]
         if limited:
-            cells += [_limits_text(q, m.low, m.high), "-" if m.cpk is None else f"{m.cpk:.2f}"]
+            cells += [_limits_text(q, m.low, m.high), "-" if m.cpk is None else f"{m.cpk:.3g}"]
         table.add_row(*cells)
     console.print(table)
     if len(groups) < 2:
@@ -272,7 +281,7 @@ def add_guidance(doc: dict[str, Any], results: Sequence[StepResult], profile: Pr
 def render_guidance(results: Sequence[StepResult], profile: Profile, band_pct: float,
                     console: Console) -> None:
     """The missed pole requirements of each modelled step, one line each."""
-    from livestep.design import ASSUMPTION, design_checks, design_region
+    from livestep.design import SHORT_ASSUMPTION, design_checks, design_region
 
     lines = []
     for r in results:
@@ -282,7 +291,7 @@ def render_guidance(results: Sequence[StepResult], profile: Profile, band_pct: f
         lines += [f"step {r.index}: {c.text}" for c in design_checks(r.model, region)
                   if c.met is False]
     if lines:
-        console.print(f"[bold]design guidance[/] ({ASSUMPTION}):")
+        console.print(f"[bold]design guidance[/], missed pole requirements ({SHORT_ASSUMPTION}):")
         for line in lines:
             console.print(f"  {line}", highlight=False)
 
