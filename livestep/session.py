@@ -143,7 +143,8 @@ class Session:
     def add_note(self, name: str, value: str, t: float | None = None) -> Note:
         """Add a note from outside the stream (a user interface): ``name`` is ``value``
         from ``t`` (seconds, the stream's time base; ``None``: the time of the latest
-        sample, 0 before any). An empty ``value`` ends the note."""
+        sample, 0 before any). An empty ``value`` ends the note. Call it from the thread
+        that feeds the session."""
         note = Note(float(t if t is not None else self.last_t or 0.0), name, value)
         self.notes.add(note)
         for s in self.sinks:

@@ -2,10 +2,12 @@
 
 from __future__ import annotations
 
+import io
 import sys
 from pathlib import Path
 
 import pytest
+from rich.console import Console
 
 from livestep.cli import main
 from livestep.decode.counters import LinkCounters
@@ -13,6 +15,7 @@ from livestep.decode.text import TextDecoder, TextFormat
 from livestep.decode.timebase import ClockSettings
 from livestep.session import AutoDecoder, Session, make_decoder, replay_file
 from livestep.sinks.base import Sink
+from livestep.sinks.console import ConsoleSink
 from livestep.sinks.recorder import Recorder
 
 sys.path.insert(0, str(Path(__file__).parent))
@@ -121,10 +124,13 @@ def test_notes_tag_steps_live_in_the_recording_and_on_replay(tmp_path, capsys):
     data = with_notes(device_lines([0.0, 1.0, 3.0, 2.0]),
                       {0: "gains=A", 2000: "gains=B", 4000: "load=full"})
     rec = Recorder(tmp_path / "n.csv", metadata={"source": "test"})
-    live = Session(TextDecoder(clock=US), sinks=[rec])
+    shown = io.StringIO()
+    live = Session(TextDecoder(clock=US), sinks=[rec, ConsoleSink(Console(file=shown))])
     feed_all(live, data, piece=555)
     assert [r.tags for r in live.results] == [
         (("gains", "A"),), (("gains", "B"),), (("gains", "B"), ("load", "full"))]
+    assert "note at 0.999 s: gains=B" in shown.getvalue()
+    assert "[gains=B, load=full]" in shown.getvalue()
     text = rec.path.read_text()
     assert "# note: 0 gains=A\n" in text and "# note: 0.9995 gains=B\n" in text
 
