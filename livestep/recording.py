@@ -227,7 +227,7 @@ class RecordingReader:
             block = block.replace(b"\r", b"")
         cells: list[tuple[int, str]] = []
         if self._ni is not None:
-            block, cells = _cut_column(block, self._ni, first_line)
+            block, cells = _cut_column(block, self._ni, len(self.header), first_line)
         data = parse_block(block, nlines, ncol)
         if data is not None:
             lines = np.arange(first_line, first_line + nlines)
@@ -308,9 +308,41 @@ class RecordingReader:
             self.notes.append(Note(at, name, value))
 
 
-def _cut_column(block: bytes, index: int, first_line: int) -> tuple[bytes, list[tuple[int, str]]]:
-    """The block without column ``index`` (comment and short lines left as they are), and
-    the non-empty cells cut, with their line numbers."""
+def _cut_column(block: bytes, index: int, ncol: int,
+                first_line: int) -> tuple[bytes, list[tuple[int, str]]]:
+    """The block without column ``index`` of ``ncol`` (comment lines, and lines that do
+    not have the column, left as they are), and the non-empty cells cut, with their line
+    numbers. Vectorised when every line of the block has ``ncol`` cells."""
+    b = np.frombuffer(block, dtype=np.uint8)
+    ends = np.flatnonzero(b == ord("\n"))
+    commas = np.flatnonzero(b == ord(","))
+    if commas.size != ends.size * (ncol - 1) or b"#" in block:
+        return _cut_column_lines(block, index, first_line)
+    at = commas.reshape(ends.size, ncol - 1)
+    starts = np.concatenate(([0], ends[:-1] + 1))
+    if not (np.all(at[:, 0] >= starts) and np.all(at[:, -1] < ends)):
+        return _cut_column_lines(block, index, first_line)  # rows of different lengths
+    if index == 0:
+        lo, hi = starts, at[:, 0]
+        gone = (lo, hi + 1)  # the cell and the comma after it
+    elif index == ncol - 1:
+        lo, hi = at[:, -1] + 1, ends
+        gone = (lo - 1, hi)  # the comma before it and the cell
+    else:
+        lo, hi = at[:, index - 1] + 1, at[:, index]
+        gone = (lo, hi + 1)
+    cells = [(first_line + int(k), block[lo[k]:hi[k]].strip().decode("utf-8", "replace"))
+             for k in np.flatnonzero(hi > lo)]
+    edge = np.zeros(b.size + 1, dtype=np.int32)
+    edge[gone[0]] += 1  # one range per line: no index repeats within either array
+    edge[gone[1]] -= 1
+    keep = np.cumsum(edge[:-1]) == 0
+    return b[keep].tobytes(), [(ln, text) for ln, text in cells if text]
+
+
+def _cut_column_lines(block: bytes, index: int,
+                      first_line: int) -> tuple[bytes, list[tuple[int, str]]]:
+    """:func:`_cut_column` line by line, for blocks with comment or short lines."""
     lines = block.split(b"\n")
     cells: list[tuple[int, str]] = []
     for k, line in enumerate(lines[:-1]):
