@@ -18,12 +18,13 @@ from typing import TYPE_CHECKING
 if TYPE_CHECKING:  # the decoders use this module; keep it light to import
     from livestep.analysis import StepResult
 
-__all__ = ["NOTE_PREFIX", "Note", "NoteTimeline", "format_note", "parse_note",
+__all__ = ["NOTE_PREFIX", "Note", "NoteTimeline", "format_note", "parse_note", "parse_notes",
            "parse_recorded_note", "tag_results"]
 
 #: How a recording carries a note: ``# note: <t> name=value``.
 NOTE_PREFIX = "# note:"
 _NOTE = re.compile(r"\s*([A-Za-z_][\w.\-]*)\s*=\s*([^=]*?)\s*")
+_TOKEN = re.compile(r"([A-Za-z_][\w.\-]*)=([^\s=,;]*)")
 
 
 @dataclass(frozen=True, order=True)
@@ -40,6 +41,18 @@ def parse_note(text: str) -> tuple[str, str] | None:
     value holding no further ``=``; spaces around them ignored), else ``None``."""
     m = _NOTE.fullmatch(text)
     return (m[1], m[2]) if m else None
+
+
+def parse_notes(text: str) -> list[tuple[str, str]] | None:
+    """The notes of a line: one pair (:func:`parse_note`), or several ``name=value``
+    tokens without spaces, separated by spaces, commas or semicolons (``kp=1.2 ki=30``);
+    ``None`` when the line is anything else."""
+    one = parse_note(text)
+    if one is not None:
+        return [one]
+    tokens = [t for t in re.split(r"[\s,;]+", text.strip()) if t]
+    pairs = [m.groups() for t in tokens if (m := _TOKEN.fullmatch(t))]
+    return pairs if tokens and len(pairs) == len(tokens) else None
 
 
 def format_note(note: Note) -> str:

@@ -5,7 +5,14 @@ from __future__ import annotations
 from hypothesis import assume, given
 from hypothesis import strategies as st
 
-from livestep.tags import Note, NoteTimeline, format_note, parse_note, parse_recorded_note
+from livestep.tags import (
+    Note,
+    NoteTimeline,
+    format_note,
+    parse_note,
+    parse_notes,
+    parse_recorded_note,
+)
 
 
 def test_parse_note_accepts_one_pair_only():
@@ -15,6 +22,13 @@ def test_parse_note_accepts_one_pair_only():
     assert parse_note("kp=") == ("kp", "")
     for not_a_note in ("t=1 sp=2", "a=1=2", "boot ok", "2kp=3", "=3", "loop time = 5 us"):
         assert parse_note(not_a_note) is None, not_a_note
+
+
+def test_parse_notes_takes_several_tokens_without_spaces():
+    assert parse_notes("gains=set B") == [("gains", "set B")]
+    assert parse_notes("kp=1.2 ki=30, kd=0.01") == [("kp", "1.2"), ("ki", "30"), ("kd", "0.01")]
+    assert parse_notes("kp=1.2 and ki=30") is None  # a word that is not a pair: a log line
+    assert parse_notes("boot ok") is None and parse_notes("") is None
 
 
 def test_recorded_note_round_trip():

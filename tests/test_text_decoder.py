@@ -176,7 +176,8 @@ def test_memory_is_bounded_without_newlines():
 def test_note_lines_are_stamped_with_the_sample_before_them():
     rows = [f"{k * 0.001:.3f},{1.0 if k >= 30 else 0.0},{k * 0.01:.2f}\n" for k in range(N)]
     text = ("gains=A\nt,setpoint,feedback\n" + "".join(rows[:20]) + "kp = 2.5\n"
-            + "".join(rows[20:40]) + "boot: ok\n# note: 9.5 gains=B\n" + "".join(rows[40:]))
+            + "".join(rows[20:40]) + "boot: ok\n# note: 9.5 gains=B\n" + "".join(rows[40:50])
+            + "kp=1.2 ki=30\n" + "".join(rows[50:]))
     for sizes in (None, [7] * 300):
         dec, chunks = decode(text.encode(), sizes=sizes)
         assert sum(len(c) for c in chunks) == N
@@ -184,8 +185,9 @@ def test_note_lines_are_stamped_with_the_sample_before_them():
         # Before any sample: the first sample's time; a recorded note's own time is
         # replaced by the stream's (here the same time base, the sample before it).
         assert [(n.t, n.name, n.value) for n in notes] == [
-            (0.0, "gains", "A"), (0.019, "kp", "2.5"), (0.039, "gains", "B")]
-        assert dec.counters.notes == 3 and dec.counters.log_lines == 1
+            (0.0, "gains", "A"), (0.019, "kp", "2.5"), (0.039, "gains", "B"),
+            (0.049, "kp", "1.2"), (0.049, "ki", "30")]
+        assert dec.counters.notes == 5 and dec.counters.log_lines == 1
         assert dec.take_notes() == []
 
 

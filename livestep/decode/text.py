@@ -9,9 +9,10 @@ field counts, ``nan`` and firmware log lines are skipped, counted by kind in
 last ``max_logs``) for display. Decisions depend only on the bytes, never on
 how they were split into reads.
 
-A line that is one ``name=value`` pair and not data (``gains=B``, ``kp = 2.5`` in a
-delimited stream; in a ``name=value`` stream, a lone pair whose name is not a column)
-is a note (:mod:`livestep.tags`), as is a recording's ``# note: <t> name=value`` line
+A line that is one ``name=value`` pair, or several without spaces (``gains=B``,
+``kp = 2.5``, ``kp=1.2 ki=30``), is a note (:mod:`livestep.tags`) in a delimited
+stream, and in a ``name=value`` stream when none of its names is a column (else it
+is a damaged data line); so is a recording's ``# note: <t> name=value`` line
 on replay: it is stamped with the time of the last sample before it (of the first
 sample, when none came before) and collected in :meth:`TextDecoder.take_notes`.
 """
@@ -30,7 +31,7 @@ from livestep.decode.timebase import ClockSettings, Timebase
 from livestep.errors import InputError
 from livestep.numparse import is_number, parse_block
 from livestep.samples import SampleChunk
-from livestep.tags import NOTE_PREFIX, Note, parse_note
+from livestep.tags import NOTE_PREFIX, Note, parse_notes
 
 __all__ = ["TextDecoder", "TextFormat"]
 
@@ -277,7 +278,8 @@ class TextDecoder:
             if note is not None:
                 out += self._emit(np.array(rows, dtype=float).reshape(-1, ncol))
                 rows = []
-                self._stamp_note(*note)
+                for name, value in note:
+                    self._stamp_note(name, value)
                 continue
             row = self._parse_line(line, ncol)
             if row is not None:
@@ -320,8 +322,8 @@ class TextDecoder:
             return None
         return row
 
-    def _note(self, line: bytes) -> tuple[str, str] | None:
-        """``(name, value)`` when the line is a note (see the module docstring)."""
+    def _note(self, line: bytes) -> list[tuple[str, str]] | None:
+        """The ``(name, value)`` pairs when the line is a note (see the module docstring)."""
         if b"=" not in line:
             return None
         try:
@@ -332,10 +334,10 @@ class TextDecoder:
             text = text[len(NOTE_PREFIX):].strip().partition(" ")[2]
         elif text.startswith("#"):
             return None
-        pair = parse_note(text)
-        if pair is None or (self._pairs and pair[0] in self.columns):
+        pairs = parse_notes(text)
+        if pairs is None or (self._pairs and any(name in self.columns for name, _ in pairs)):
             return None  # a damaged data line of a name=value stream is not a note
-        return pair
+        return pairs
 
     def _stamp_note(self, name: str, value: str) -> None:
         self.counters.notes += 1
