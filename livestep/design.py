@@ -10,8 +10,9 @@ maxima into a region of the s-plane:
   Engineering*; Dorf & Bishop); zeta >= 1 when no overshoot is allowed;
 - settling time <= Ts: sigma >= c / Ts, left of a vertical line, with c the rule-of-thumb
   constant of the settling band, 4 for 2 %, -ln(band) otherwise (3.0 for 5 %, 4.6 for
-  1 %) (Ogata; Nise). It follows the decay envelope exp(-sigma t) and ignores the
-  1/sqrt(1 - zeta^2) factor of the exact envelope bound, up to 0.2 / sigma of time;
+  1 %) (Ogata; Nise). It follows the decay envelope exp(-sigma t) and leaves out the
+  1/sqrt(1 - zeta^2) factor of the exact envelope bound, which adds
+  -ln(sqrt(1 - zeta^2)) / sigma of time (0.22 / sigma at zeta = 0.6, 0.51 at 0.8);
 - peak time <= Tp: wd >= pi / Tp, outside a horizontal strip (Ogata).
 
 livestep measures settling and peak times from the step instant, so a model's dead
