@@ -165,6 +165,9 @@ def test_every_step_with_its_verdict_failed_first(made: dict[str, Path]) -> None
     summary = " ".join(page.text["summary"].split())
     assert "4 steps: 2 \u2714 pass, 0 \u25b2 warn, 2 \u2718 fail." in summary
     assert "Failed: step 0, step 2." in summary
+    # statistics per group (livestep.statistics): 8 -> 10 -> 14 -> 11 -> 16
+    for group in ("all steps (4 steps)", "direction up (3 steps)", "direction down (1 step)"):
+        assert group in summary, group
     # each failed step's table names the overshoot limit it broke
     for i in FAILING:
         assert "above the maximum 10 %" in page.text[f"step-{i}"]

@@ -18,7 +18,8 @@ from livestep.quantities import QUANTITIES
 from livestep.reports.page import ReportContent, render_page
 from livestep.reports.plots import TrendPoint, save_png, step_figure, svg_text, trend_figure
 from livestep.reports.session_info import SessionInfo
-from livestep.reports.summary import display_unit, report_quantities, session_statistics
+from livestep.reports.summary import display_unit, report_quantities
+from livestep.statistics import session_statistics
 from livestep.verdict import StepVerdict, judge
 
 __all__ = ["write_report"]

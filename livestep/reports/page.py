@@ -18,7 +18,8 @@ from livestep.measure import MeasureSettings
 from livestep.profile import Limit, Profile, Rule
 from livestep.quantities import QUANTITIES
 from livestep.reports.session_info import SessionInfo
-from livestep.reports.summary import GroupStats, cp, display_unit
+from livestep.reports.summary import cp, display_unit
+from livestep.statistics import GroupStats
 from livestep.verdict import (
     FAIL,
     NOT_MEASURED,
@@ -229,13 +230,16 @@ def _summary(c: ReportContent) -> str:
                         + "".join(f'<td class="n">{e(x)}</td>' for x in cells) + "</tr>")
         if rows:
             name = "all steps" if g.by == "all" else f"{g.by} {g.key}"
-            out.append(f"<h3>{e(name)} ({len(g.steps)} steps)</h3><table>{head}"
+            count = f"{len(g.steps)} step" + ("" if len(g.steps) == 1 else "s")
+            out.append(f"<h3>{e(name)} ({count})</h3><table>{head}"
                        f"{''.join(rows)}</table>")
-    out.append('<p class="muted">std: sample standard deviation. Cp = (max - min limit) /'
-               " 6 std, Cpk = nearest limit's distance from the mean / 3 std (one limit: that"
-               " side alone; ISO 22514-2). Taken over individual steps without subgroups,"
-               " which SPC manuals call Pp and Ppk. '-' without a limit, with fewer than two"
-               " values, or where the group's steps have different limits.</p></section>")
+    out.append('<p class="muted">std: sample standard deviation (n - 1). Cp = (max limit -'
+               " min limit) / (6 std); Cpk = min(max limit - mean, mean - min limit) /"
+               " (3 std), one side alone with one limit (NIST/SEMATECH e-Handbook of"
+               " Statistical Methods, 6.1.6). Over individual steps without subgroups, they"
+               " describe these steps only (SPC manuals call this Pp and Ppk). '-' without a"
+               " limit, with fewer than two values, or where the group's steps have"
+               " different limits.</p></section>")
     return "".join(out)
 
 
