@@ -32,8 +32,9 @@ from livestep.samples import SampleChunk
 from livestep.session import Decoder, Session
 from livestep.sinks.base import Sink
 from livestep.sinks.recorder import Recorder
+from livestep.tags import Note
 
-__all__ = ["Note", "ReplaySource", "Samples", "Snapshot", "Source", "StepEntry", "Watch",
+__all__ = ["ReplaySource", "Samples", "Snapshot", "Source", "StepEntry", "Watch",
            "results_log_path"]
 
 FloatArray = NDArray[np.float64]
@@ -142,16 +143,6 @@ class ReplaySource:
             if due <= 0:
                 return
             self._stop.wait(min(due, 0.05))
-
-
-@dataclass(frozen=True)
-class Note:
-    """A note the user added: ``name=value`` (e.g. ``gains=B``), from device time ``t``
-    (seconds) on. It tags the steps that follow."""
-
-    name: str
-    value: str
-    t: float | None
 
 
 @dataclass(frozen=True)
@@ -268,6 +259,11 @@ class _Collector(Sink):
     def on_step(self, result: StepResult) -> None:
         self.watch._add_step(result)
 
+    def on_note(self, note: Note) -> None:
+        with self.watch._lock:
+            self.watch._notes.append(note)
+            self.watch._version += 1
+
 
 class Watch:
     """A live session in threads. ``start()``, then read :meth:`snapshot` and
@@ -347,16 +343,15 @@ class Watch:
         return self._done.is_set()
 
     def add_note(self, name: str, value: str) -> Note:
-        """Tag the steps from now on (device time of the last sample) with ``name=value``;
-        written to the recording as a ``# note:`` line."""
+        """Tag the steps from now on (the device time of the last sample) with
+        ``name=value`` (an empty value ends the note); it reaches the session, and through
+        it the recording, on the analysis thread."""
         name, value = name.strip(), value.strip()
         if not name:
-            raise InputError("a note needs a name: NAME=VALUE or just a word")
+            raise InputError("a note needs a name: NAME=VALUE or a few words")
         with self._lock:
-            note = Note(name, value, self._data_time)
-            self._notes.append(note)
-            self._new_notes.append(note)  # handed to the session on the analysis thread
-            self._version += 1
+            note = Note(self._data_time or 0.0, name, value)
+            self._new_notes.append(note)
         return note
 
     def snapshot(self) -> Snapshot:
@@ -399,18 +394,6 @@ class Watch:
         return STREAMING
 
     def _add_step(self, result: StepResult) -> None:
-        tags = result.tags
-        if not tags and self._notes and not hasattr(self.session, "add_note"):
-            # Local tag timeline (until the session keeps its own): the latest value of
-            # each note name added at or before the step instant.
-            active: dict[str, str] = {}
-            with self._lock:
-                notes = list(self._notes)
-            for n in notes:
-                if n.t is None or n.t <= result.metrics.t_step:
-                    active[n.name] = n.value
-            tags = tuple(active.items())
-            result = replace(result, tags=tags)
         verdict = None
         if self.profile is not None:
             from livestep.verdict import judge
@@ -443,11 +426,7 @@ class Watch:
         with self._lock:
             notes, self._new_notes = self._new_notes, []
         for note in notes:
-            add = getattr(self.session, "add_note", None)
-            if callable(add):  # the session's own tag timeline, where there is one
-                add(note.name, note.value, t=note.t)
-            elif self.recorder is not None:
-                self.recorder.note(f"note: {note.name}={note.value}")
+            self.session.add_note(note.name, note.value, t=note.t)
 
     def _set_state(self, state: str) -> None:
         with self._lock:

@@ -19,6 +19,7 @@ from livestep.decode.timebase import ClockSettings
 from livestep.profile import parse_profile
 from livestep.session import make_decoder
 from livestep.sources.serial_port import PortSettings, SerialReader
+from livestep.tags import parse_recorded_note
 from livestep.watch import ReplaySource, Watch, results_log_path, step_line_record
 
 sys.path.insert(0, str(Path(__file__).parent))
@@ -132,7 +133,9 @@ def test_notes_tag_the_following_steps(tmp_path):
         expected = (("gains", "B"),) if e.result.metrics.t_step >= note.t else ()
         assert e.result.tags == expected
     assert {e.result.tags for e in steps} == {(), (("gains", "B"),)}
-    assert "# note: gains=B" in (tmp_path / "n.csv").read_text()
+    recorded = [parse_recorded_note(x) for x in (tmp_path / "n.csv").read_text().splitlines()
+                if x.startswith("# note:")]
+    assert recorded == [note]
 
 
 def test_headless_through_a_pty_matches_analyze_on_its_recording(tmp_path):

@@ -26,6 +26,7 @@ from textual.widget import Widget
 from textual.widgets import DataTable, Footer, Input, Static
 
 from livestep.errors import EXIT_OK, InputError
+from livestep.tags import parse_notes
 from livestep.tui import views
 from livestep.tui.plot import Plot
 from livestep.watch import ReplaySource, Snapshot, StepEntry, Watch
@@ -391,19 +392,19 @@ class LivestepApp(App[int]):
         self.push_screen(NoteScreen(), self._add_note)
 
     def _add_note(self, text: str | None) -> None:
+        """``name=value`` pairs (one, or several tokens such as ``kp=1.2 ki=30``), else the
+        words as ``note=...``."""
         if not text or not text.strip():
             self.say("no note added")
             return
-        name, sep, value = text.partition("=")
-        if not sep:
-            name, value = "note", text
+        pairs = parse_notes(text) or [("note", text.strip())]
         try:
-            note = self.watch.add_note(name, value)
+            notes = [self.watch.add_note(name, value) for name, value in pairs]
         except InputError as exc:
             self.say(str(exc))
             return
-        when = "" if note.t is None else f" from {note.t:.3f} s"
-        self.say(f"note {note.name}={note.value} tags the steps{when} on")
+        said = " ".join(f"{n.name}={n.value}" for n in notes)
+        self.say(f"note {said} tags the steps from {notes[0].t:.3f} s on")
 
     def action_save(self) -> None:
         """Writes in a thread: a report with plots takes a moment, the view goes on."""
