@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
-import importlib
 import signal
 import time
 from pathlib import Path
@@ -107,14 +106,11 @@ class HelpScreen(ModalScreen[None]):
 
 
 def save_report(watch: Watch, folder: Path) -> str:
-    """Write the HTML report of the steps so far with :mod:`livestep.reports` where this
-    build has it (looked up at call time); returns the line to show. The steps still in
-    memory get their plots; older ones only their figures."""
-    try:
-        reports = importlib.import_module("livestep.reports")
-        write, info_type = reports.write_report, reports.SessionInfo
-    except (ImportError, AttributeError):
-        return "report writing is not available in this build"
+    """Write the HTML report (:mod:`livestep.reports`) of the steps so far into ``folder``;
+    returns the line to show. The steps still in memory get their plots, older ones their
+    figures only."""
+    from livestep.reports import SessionInfo, write_report  # loads matplotlib: on demand
+
     snap = watch.snapshot()
     if not snap.steps:
         return "no steps yet: no report written"
@@ -123,16 +119,16 @@ def save_report(watch: Watch, folder: Path) -> str:
     samples = snap.counters["samples"]
     meta = [("source", snap.source)] + ([("recording", snap.recording)] if snap.recording
                                         else [])
-    info = info_type(source=snap.recording or snap.source, samples=samples, duration=duration,
-                     sample_rate=samples / duration if duration else None,
-                     metadata=tuple(meta), counters=snap.counters)
+    info = SessionInfo(source=snap.recording or snap.source, samples=samples,
+                       duration=duration, sample_rate=samples / duration if duration else None,
+                       metadata=tuple(meta), counters=snap.counters)
     path = folder / time.strftime("livestep-report-%Y%m%d-%H%M%S.html")
     try:
-        out = write(path, [e.result for e in snap.steps], info, watch.profile,
-                    measure=watch.session.settings.measure)
+        out = write_report(path, [e.result for e in snap.steps], info, watch.profile,
+                           measure=watch.session.settings.measure)
     except (OSError, InputError) as exc:
         return f"report not written: {exc}"
-    return f"report saved to {out or path}"
+    return f"report saved to {out}"
 
 
 class LivestepApp(App[int]):

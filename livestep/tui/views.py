@@ -7,7 +7,6 @@ is tested without an app.
 
 from __future__ import annotations
 
-import importlib
 from typing import Any
 
 import numpy as np
@@ -16,6 +15,7 @@ from rich.table import Table
 from rich.text import Text
 
 from livestep.analysis import StepResult
+from livestep.design import SHORT_ASSUMPTION, assess, design_region
 from livestep.measure import MeasureSettings
 from livestep.quantities import QUANTITIES, value_of
 from livestep.second_order import step_response
@@ -119,24 +119,18 @@ def _limit_text(q: Any, low: float | None, high: float | None) -> str:
 
 
 def design_sentence(result: StepResult, profile: Any, band_pct: float) -> str:
-    """The design-guidance sentence for a step: where the profile wants the dominant poles
-    against the step's fitted model, from :mod:`livestep.design` where this build has it
-    (looked up at call time); the requirement missed by most comes first."""
-    try:
-        design = importlib.import_module("livestep.design")
-        assess, region_of = design.assess, design.design_region
-    except (ImportError, AttributeError):
-        return "design guidance is not available in this build"
+    """The design-guidance sentence for a step (:mod:`livestep.design`): where the profile
+    wants the dominant poles against the step's fitted model, the requirement missed by
+    most first. ``band_pct``: the settling band, +- % of the amplitude."""
     if profile is None:
         return "design guidance needs a profile (--profile)"
     if result.model is None:
         return "no model fitted: no design guidance"
-    region = region_of(profile.limits_for(result), band_pct)
+    region = design_region(profile.limits_for(result), band_pct)
     if region.empty:
         return "the profile limits none of overshoot, settling and peak time: no guidance"
     sentences = assess(result.model, region)
-    note = getattr(design, "SHORT_ASSUMPTION", "")
-    return sentences[0] + (f" ({note})" if note else "") if sentences else ""
+    return f"{sentences[0]} ({SHORT_ASSUMPTION})" if sentences else ""
 
 
 def step_panel(e: StepEntry | None, *, live: bool, narrow: bool = False,
