@@ -14,6 +14,7 @@ import signal
 import sys
 import threading
 from collections import Counter
+from collections.abc import Sequence
 from pathlib import Path
 from typing import IO
 
@@ -25,9 +26,9 @@ from livestep.session import AutoDecoder, Decoder, Session, replay_file
 from livestep.sinks.base import Sink
 from livestep.sinks.console import ConsoleSink, JsonLinesSink, counters_table
 from livestep.sources.serial_port import PortSettings, SerialReader
-from livestep.watch import StepEntry, Watch, step_line_record
+from livestep.watch import Driver, StepEntry, Watch, step_line_record
 
-__all__ = ["describe_decoder", "metadata_for", "run_headless", "run_live", "run_replay",
+__all__ = ["Driver", "describe_decoder", "metadata_for", "run_headless", "run_live", "run_replay",
            "run_until_done"]
 
 
@@ -66,17 +67,18 @@ def _stop_on_sigterm(stop: threading.Event):
         signal.signal(signal.SIGTERM, previous)
 
 
-def run_until_done(watch: Watch) -> None:
-    """Start ``watch`` and wait for its end; Ctrl-C or SIGTERM end it cleanly."""
-    stop = threading.Event()
+def run_until_done(watch: Watch, stop: threading.Event | None = None) -> None:
+    """Start ``watch`` and wait for its end; Ctrl-C, SIGTERM or ``stop`` (set from another
+    thread) end it cleanly."""
+    stop = stop if stop is not None else threading.Event()
     watch.start()
     try:
         with _stop_on_sigterm(stop):
-            while not watch.wait(0.2):
+            while not watch.wait(0.1):
                 if stop.is_set():
                     watch.stop()
     except KeyboardInterrupt:
-        pass
+        watch.stop("interrupted")
     finally:
         watch.stop()
         while not watch.wait(0.5):
@@ -104,14 +106,21 @@ class _Announce(Sink):
 
 def run_live(port: PortSettings, decoder: Decoder, settings: AnalysisSettings, *,
              record: Path | None, raw: Path | None = None, duration: float | None = None,
-             json_lines: bool = False) -> int:
-    """Read, decode, record and analyse until stopped; returns the exit status."""
+             json_lines: bool = False, driver: Driver | None = None,
+             sinks: Sequence[Sink] = (), print_steps: bool = True,
+             source: str | None = None, stop: threading.Event | None = None) -> int:
+    """Read, decode, record and analyse until stopped (Ctrl-C, SIGTERM, ``duration``, the
+    driver, or ``stop`` set from another thread, e.g. a UI's quit); returns the exit status.
+    ``sinks`` listen besides the step printer (``print_steps``) and the recorder; ``source``
+    names the link in the recording."""
     console = Console(stderr=True, highlight=False)
-    watch = Watch(SerialReader(port), decoder, settings, source_name=port.url, record=record,
-                  raw=raw, metadata=metadata_for(port.url, decoder),
-                  sinks=[_step_sink(json_lines)], duration=duration)
+    name = source or port.url
+    watch = Watch(SerialReader(port), decoder, settings, source_name=name, record=record,
+                  raw=raw, metadata=metadata_for(name, decoder), driver=driver,
+                  sinks=([_step_sink(json_lines)] if print_steps else []) + list(sinks),
+                  duration=duration)
     watch.session.sinks.insert(0, _Announce(watch, console))
-    run_until_done(watch)
+    run_until_done(watch, stop)
     error = watch.snapshot().error
     if error:
         console.print(f"livestep: error: {error}")
@@ -121,7 +130,10 @@ def run_live(port: PortSettings, decoder: Decoder, settings: AnalysisSettings, *
         console.print(f"recorded {recorder.rows} samples to {recorder.path}")
     elif recorder is not None:
         console.print("no samples received: no recording written")
-    return exit_status(error)
+    status = exit_status(error)
+    if status == EXIT_OK and driver is not None:
+        status = driver.exit_status
+    return status
 
 
 def run_headless(watch: Watch, out: IO[str]) -> int:

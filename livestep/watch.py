@@ -34,7 +34,7 @@ from livestep.sinks.base import Sink
 from livestep.sinks.recorder import Recorder
 from livestep.tags import Note
 
-__all__ = ["ReplaySource", "Samples", "Snapshot", "Source", "StepEntry", "Watch",
+__all__ = ["Driver", "ReplaySource", "Samples", "Snapshot", "Source", "StepEntry", "Watch",
            "results_log_path"]
 
 FloatArray = NDArray[np.float64]
@@ -53,6 +53,25 @@ class Source(Protocol):
     def start(self) -> None: ...
 
     def stop(self, timeout: float = 1.0) -> None: ...
+
+
+class Driver(Protocol):
+    """Something that acts on the link during a session (a step plan): :meth:`begin` once
+    the source is open, :meth:`poll` between reads on the analysis thread (``True`` ends
+    the session), :meth:`on_state` on link changes, and :meth:`end` with the reason
+    (``done``, ``stopped``, ``interrupted`` or ``error``) before the source closes,
+    whatever ends the session; :attr:`exit_status` when it ended well."""
+
+    def begin(self, link: Any, session: Session) -> None: ...
+
+    def poll(self) -> bool: ...
+
+    def on_state(self, state: str) -> None: ...
+
+    def end(self, reason: str) -> None: ...
+
+    @property
+    def exit_status(self) -> int: ...
 
 
 class ReplaySource:
@@ -280,13 +299,16 @@ class Watch:
                  profile: Any = None, sinks: Sequence[Sink] = (),
                  on_step: Callable[[StepEntry], None] | None = None,
                  duration: float | None = None, max_steps: int | None = None,
-                 keep_windows: int = 20, ring_samples: int = 1 << 19) -> None:
+                 driver: Driver | None = None, keep_windows: int = 20,
+                 ring_samples: int = 1 << 19) -> None:
         self.source = source
         self.source_name = source_name
         self.replay = isinstance(source, ReplaySource)
         self.profile = profile
         self.on_step = on_step
         self.duration = duration
+        self.driver = driver
+        self.reason = "stopped"  # why the session ended: done, stopped, interrupted, error
         self.max_steps = max_steps
         self.keep_windows = keep_windows
         self._lock = threading.Lock()
@@ -322,12 +344,17 @@ class Watch:
             self.results_log = results_log_path(self.recorder.path)
             self.session.sinks.append(self.recorder)
         self._started = time.monotonic()
+        if self.driver is not None:
+            self.driver.begin(self.source, self.session)
         self._thread = threading.Thread(target=self._run, name="livestep-analysis",
                                         daemon=True)
         self._thread.start()
 
-    def stop(self) -> None:
-        """Ask the session to end; everything received is still decoded and recorded."""
+    def stop(self, reason: str = "stopped") -> None:
+        """Ask the session to end (``reason``: stopped or interrupted); everything received
+        is still decoded and recorded."""
+        if not self._stop.is_set():
+            self.reason = reason
         self._stop.set()
 
     def wait(self, timeout: float | None = None) -> bool:
@@ -447,31 +474,43 @@ class Watch:
                  "playing": WAITING, "finished": FINISHED}.get(str(payload), str(payload))
         self._set_state(state)
         self.session.state(str(payload))
+        if self.driver is not None:
+            self.driver.on_state(str(payload))
         if payload == "finished":
             self._stop.set()
 
     def _run(self) -> None:
         end = self._started + self.duration if self.duration else None
         events = self.source.events
+        timeout = 0.1 if self.driver is None else 0.05
         try:
             while not self._stop.is_set() and (end is None or time.monotonic() < end):
                 if self._new_notes:
                     self._pass_notes()
                 try:
-                    kind, payload = events.get(timeout=0.1)
+                    kind, payload = events.get(timeout=timeout)
                 except queue.Empty:
                     self.session.tick()
-                    continue
-                self._handle(kind, payload)
-                self.session.tick()
+                else:
+                    self._handle(kind, payload)
+                    self.session.tick()
+                if self.driver is not None and self.driver.poll():
+                    self.reason = "done"
+                    break
         except InputError as exc:
-            self._error = str(exc)
+            self._error, self.reason = str(exc), "error"
         except Exception as exc:  # a bug: keep what was recorded, say it in one line
             self._error = f"internal error: {type(exc).__name__}: {exc}"
+            self.reason = "error"
         finally:
             self._finish()
 
     def _finish(self) -> None:
+        if self.driver is not None:
+            try:
+                self.driver.end(self.reason)
+            except Exception as exc:  # the source still closes and the recording with it
+                self._error = self._error or f"internal error: {type(exc).__name__}: {exc}"
         self.source.stop()
         self._pass_notes()
         with contextlib.suppress(InputError):

@@ -3,11 +3,14 @@ memory, and ``watch --headless`` through a real pseudo-terminal."""
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
+import os
 import signal
 import subprocess
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -16,6 +19,7 @@ import pytest
 from livestep.analysis import AnalysisSettings
 from livestep.cli import main
 from livestep.decode.timebase import ClockSettings
+from livestep.live import run_live
 from livestep.profile import parse_profile
 from livestep.session import make_decoder
 from livestep.sources.serial_port import PortSettings, SerialReader
@@ -202,3 +206,57 @@ def test_headless_duration_stops_by_itself():
     # 1 s at 8 x real time is about 8 s of the 18 s recording: it stopped before the end.
     assert summary["steps"] == len(lines) - 1 and 0 < summary["samples"] < 36000
     assert summary["verdicts"] == {} and summary["profile"] is None
+
+
+class PlanDouble:
+    """A driver of our own Driver protocol: sends one line when the link opens, ends the
+    session once the device has streamed two steps, and notes what it was told."""
+
+    exit_status = 0
+
+    def __init__(self) -> None:
+        self.calls: list[str] = []
+        self.session = None
+
+    def begin(self, link, session) -> None:
+        self.calls.append("begin")
+        self.session = session
+        link.write(b"sp 1\n")
+
+    def poll(self) -> bool:
+        return len(self.session.results) >= 2
+
+    def on_state(self, state: str) -> None:
+        self.calls.append(state)
+
+    def end(self, reason: str) -> None:
+        self.calls.append(f"end {reason}")
+
+
+def test_a_driver_acts_on_the_link_and_ends_the_session(tmp_path):
+    dev = Pty()
+    driver = PlanDouble()
+    try:
+        result: list[int] = []
+        runner = threading.Thread(target=lambda: result.append(run_live(
+            PortSettings(url=dev.path), make_decoder("text", clock=ClockSettings(unit="us")),
+            AnalysisSettings(), record=tmp_path / "d.csv", driver=driver,
+            print_steps=False, source="bench double")))
+        runner.start()
+        got = b""
+        end = time.monotonic() + 20
+        while b"\n" not in got and time.monotonic() < end:  # what the driver sent
+            got += os.read(dev.master, 100)
+        data = device_lines([0.0, 1.0, -1.0, 0.5])
+
+        def write() -> None:  # the session ends mid-stream: the rest blocks, then fails
+            with contextlib.suppress(OSError):
+                write_paced(dev, data, 400_000)
+
+        threading.Thread(target=write, daemon=True).start()
+        runner.join(30)
+    finally:
+        dev.close()
+    assert got == b"sp 1\n" and result == [0]
+    assert driver.calls[:2] == ["begin", "connected"] and driver.calls[-1] == "end done"
+    assert "# source: bench double" in (tmp_path / "d.csv").read_text()
