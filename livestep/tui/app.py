@@ -160,6 +160,8 @@ class LivestepApp(App[int]):
         Binding("question_mark,f1", "help", "help", key_display="?",
                 tooltip="this help: every key and symbol"),
         Binding("q", "quit", "quit", tooltip="quit (the recording is flushed and closed)"),
+        Binding("ctrl+c", "quit", "quit", show=False, priority=True, key_display="ctrl+c",
+                tooltip="quit, as q"),
     ]
 
     def __init__(self, watch: Watch, *, report_folder: Path | None = None,
