@@ -431,7 +431,8 @@ def _replay(args: argparse.Namespace) -> int:
 
 def _watch(args: argparse.Namespace) -> int:
     from livestep.live import metadata_for, run_headless
-    from livestep.watch import ReplaySource, Watch
+    from livestep.sources.replay import ReplaySource
+    from livestep.watch import Watch
 
     if args.steps is not None and args.steps < 1:
         raise InputError("--steps: expected a positive whole number")

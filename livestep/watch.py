@@ -13,7 +13,6 @@ stream: the recent samples live in a fixed ring buffer and only the last
 from __future__ import annotations
 
 import contextlib
-import gzip
 import json
 import queue
 import threading
@@ -32,9 +31,10 @@ from livestep.samples import SampleChunk
 from livestep.session import Decoder, Session
 from livestep.sinks.base import Sink
 from livestep.sinks.recorder import Recorder
+from livestep.sources.replay import ReplaySource
 from livestep.tags import Note
 
-__all__ = ["Driver", "ReplaySource", "Samples", "Snapshot", "Source", "StepEntry", "Watch",
+__all__ = ["Driver", "Samples", "Snapshot", "Source", "StepEntry", "Watch",
            "results_log_path"]
 
 FloatArray = NDArray[np.float64]
@@ -72,96 +72,6 @@ class Driver(Protocol):
 
     @property
     def exit_status(self) -> int: ...
-
-
-class ReplaySource:
-    """Plays a recording (or raw capture, gzip or not) in its own thread, paced by the
-    decoded sample times (``progress()``: seconds of data the session has decoded) at
-    ``speed`` x real time, or as fast as the consumer takes it (``speed=None``). The
-    queue is short and blocking: a file loses nothing by waiting."""
-
-    def __init__(self, path: Path, *, speed: float | None = 1.0, block: int = 4096,
-                 paused: bool = False) -> None:
-        if not Path(path).is_file():
-            raise InputError(f"{path}: no such file")
-        self.path = Path(path)
-        self.events: queue.Queue[tuple[str, object]] = queue.Queue(maxsize=2)
-        self.block = block if speed is not None else max(block, 1 << 16)
-        self.progress: Callable[[], float | None] = lambda: None
-        self._speed = speed
-        self._stop = threading.Event()
-        self._playing = threading.Event()
-        if not paused:
-            self._playing.set()
-        self._anchor: tuple[float, float] | None = None  # (wall clock, data time)
-        self._thread: threading.Thread | None = None
-
-    @property
-    def speed(self) -> float | None:
-        return self._speed
-
-    @property
-    def paused(self) -> bool:
-        return not self._playing.is_set()
-
-    def set_speed(self, speed: float | None) -> None:
-        """New pace from now on (``None``: as fast as possible)."""
-        self._speed = speed
-        self._anchor = None
-
-    def pause(self) -> None:
-        self._playing.clear()
-        self._put(("state", "paused"))
-
-    def resume(self) -> None:
-        self._anchor = None
-        self._playing.set()
-        self._put(("state", "playing"))
-
-    def start(self) -> None:
-        self._thread = threading.Thread(target=self._run, name="livestep-replay", daemon=True)
-        self._thread.start()
-
-    def stop(self, timeout: float = 1.0) -> None:
-        self._stop.set()
-        self._playing.set()
-        if self._thread is not None:
-            self._thread.join(timeout)
-
-    def _put(self, event: tuple[str, object]) -> bool:
-        while not self._stop.is_set():
-            try:
-                self.events.put(event, timeout=0.05)
-                return True
-            except queue.Full:
-                continue
-        return False
-
-    def _run(self) -> None:
-        with open(self.path, "rb") as raw:
-            fh: IO[bytes] = gzip.GzipFile(fileobj=raw) if raw.peek(2)[:2] == b"\x1f\x8b" else raw
-            while not self._stop.is_set():
-                self._playing.wait()
-                data = fh.read(self.block)
-                if not data:
-                    self._put(("state", "finished"))
-                    return
-                if not self._put(("data", data)):
-                    return
-                self._pace()
-
-    def _pace(self) -> None:
-        while not self._stop.is_set() and self._playing.is_set():
-            speed, done = self._speed, self.progress()
-            if speed is None or done is None:
-                return
-            now = time.monotonic()
-            if self._anchor is None:
-                self._anchor = (now, done)
-            due = (done - self._anchor[1]) / speed - (now - self._anchor[0])
-            if due <= 0:
-                return
-            self._stop.wait(min(due, 0.05))
 
 
 @dataclass(frozen=True)

@@ -26,10 +26,11 @@ from livestep.analysis import AnalysisSettings
 from livestep.decode.timebase import ClockSettings
 from livestep.profile import parse_profile
 from livestep.session import make_decoder
+from livestep.sources.replay import ReplaySource
 from livestep.sources.serial_port import PortSettings, SerialReader
 from livestep.tui import views
 from livestep.tui.app import HelpScreen, History, LivestepApp, NoteScreen, StepPlotView
-from livestep.watch import ReplaySource, Watch
+from livestep.watch import Watch
 
 sys.path.insert(0, str(Path(__file__).parent))
 from test_live import device_lines, write_paced  # noqa: E402

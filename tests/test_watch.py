@@ -22,9 +22,10 @@ from livestep.decode.timebase import ClockSettings
 from livestep.live import run_live
 from livestep.profile import parse_profile
 from livestep.session import make_decoder
+from livestep.sources.replay import ReplaySource
 from livestep.sources.serial_port import PortSettings, SerialReader
 from livestep.tags import parse_recorded_note
-from livestep.watch import ReplaySource, Watch, results_log_path, step_line_record
+from livestep.watch import Watch, results_log_path, step_line_record
 
 sys.path.insert(0, str(Path(__file__).parent))
 from test_live import ROOT, close_enough, device_lines, steps_of, write_paced  # noqa: E402

@@ -45,9 +45,10 @@ from livestep.analysis import AnalysisSettings  # noqa: E402
 from livestep.profile import parse_profile  # noqa: E402
 from livestep.session import make_decoder  # noqa: E402
 from livestep.sinks.base import Sink  # noqa: E402
+from livestep.sources.replay import ReplaySource  # noqa: E402
 from livestep.sources.serial_port import PortSettings, SerialReader  # noqa: E402
 from livestep.tui.app import LivestepApp  # noqa: E402
-from livestep.watch import ReplaySource, Watch  # noqa: E402
+from livestep.watch import Watch  # noqa: E402
 
 RATE = 20_000.0
 PROFILE = parse_profile('name = "bench"\n[limits]\novershoot_pct = { max = 20 }\n'

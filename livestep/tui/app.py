@@ -25,10 +25,11 @@ from textual.widget import Widget
 from textual.widgets import DataTable, Footer, Input, Static
 
 from livestep.errors import EXIT_OK, InputError
+from livestep.sources.replay import ReplaySource
 from livestep.tags import parse_notes
 from livestep.tui import views
 from livestep.tui.plot import Plot
-from livestep.watch import ReplaySource, Snapshot, StepEntry, Watch
+from livestep.watch import Snapshot, StepEntry, Watch
 
 __all__ = ["LivestepApp", "run_app", "save_report"]
 
