@@ -18,7 +18,7 @@ import queue
 import threading
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import IO, Any, Protocol
 
@@ -117,7 +117,6 @@ class Snapshot:
     version: int
     done: bool
     error: str | None = None
-    cpu: dict[str, float] = field(default_factory=dict)
 
 
 class _Ring:
@@ -234,7 +233,6 @@ class Watch:
         self._stop = threading.Event()
         self._done = threading.Event()
         self._thread: threading.Thread | None = None
-        self._cpu: dict[str, float] = {}
         self.recorder: Recorder | None = None
         self.results_log: Path | None = None
         self._log: IO[str] | None = None
@@ -308,7 +306,7 @@ class Watch:
                 steps=tuple(self._entries), notes=tuple(self._notes),
                 speed=getattr(self.source, "speed", None),
                 profile=getattr(self.profile, "name", None), version=self._version,
-                done=self._done.is_set(), error=self._error, cpu=dict(self._cpu))
+                done=self._done.is_set(), error=self._error)
 
     def samples(self, since: float | None = None, count: int = 1 << 16) -> Samples:
         """Copies of the recent samples: from device time ``since`` (seconds), or the
@@ -437,8 +435,6 @@ class Watch:
             self._error = self._error or str(exc)
         if self._log is not None:
             self._log.close()
-        self._cpu = {"analysis thread": time.thread_time(),
-                     "reader thread": getattr(self.source, "cpu_time", 0.0)}
         with self._lock:
             if self._state != FINISHED:
                 self._state = STOPPED

@@ -29,7 +29,7 @@ from livestep.sources.replay import ReplaySource
 from livestep.tags import parse_notes
 from livestep.tui import views
 from livestep.tui.plot import Plot
-from livestep.watch import Snapshot, StepEntry, Watch
+from livestep.watch import Samples, Snapshot, StepEntry, Watch
 
 __all__ = ["LivestepApp", "run_app", "save_report"]
 
@@ -281,8 +281,6 @@ class LivestepApp(App[int]):
                 plot.show(Plot([], empty=f"step {entry.result.index}: its samples are only"
                                " in the recording (the last steps are kept in memory)"))
                 return
-            from livestep.watch import Samples
-
             t_step, t_end = entry.result.metrics.t_step, float(w.t[-1])
             start = max(float(w.t[0]), t_step - 0.15 * (t_end - t_step))
             plot.show(views.step_plot(Samples(t=w.t, feedback=w.feedback, setpoint=w.setpoint),
