@@ -174,8 +174,19 @@ def test_disconnected_state_shows_when_the_pty_closes(tmp_path):
 
     async def script(pilot) -> None:
         await until(pilot, lambda: app.watch.snapshot().state == "waiting for data")
-        dev.write(device_lines([0.0, 1.0], hold=0.3))
+        data = device_lines([0.0, 1.0], hold=0.3)
+        dev.write(data[: len(data) // 2])
         await until(pilot, lambda: "▶ streaming" in link(app))
+        await pilot.press("space")  # live, the view holds still while recording goes on
+        assert app.message == "view paused: recording and measuring go on"
+        held = app.query_one(StepPlotView).plot
+        samples = app.watch.snapshot().counters["samples"]
+        dev.write(data[len(data) // 2:])
+        await until(pilot, lambda: app.watch.snapshot().counters["samples"] > samples)
+        await pilot.pause()
+        assert app.query_one(StepPlotView).plot is held
+        await pilot.press("space")
+        await until(pilot, lambda: app.query_one(StepPlotView).plot is not held)
         dev.close()
         await until(pilot, lambda: "✖ disconnected, retrying" in link(app))
 

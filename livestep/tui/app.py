@@ -180,6 +180,7 @@ class LivestepApp(App[int]):
         self._rows = 0
         self._link: Text | None = None
         self._shown: tuple | None = None
+        self._plotted: tuple | None = None
         self.shown_at: dict[int, float] = {}  # step index -> when its row appeared
         self._chained = watch.on_step
         watch.on_step = self._notify_step
@@ -273,6 +274,11 @@ class LivestepApp(App[int]):
                 self.watch.session.settings.measure.settling_band)
             self.query_one("#panel", Static).update(
                 views.step_panel(entry, live=live, narrow=self.narrow, guidance=guidance))
+        plot_key = (key, self.show_model, snap.data_time if live else None,
+                    self.paused and live and not snap.replay)
+        if plot_key == self._plotted or (plot_key[3] and self._plotted is not None):
+            return  # nothing new to draw (or the live view holds still)
+        self._plotted = plot_key
         plot = self.query_one(StepPlotView)
         measure = self.watch.session.settings.measure
         if not live:
@@ -287,8 +293,6 @@ class LivestepApp(App[int]):
                                       entry, measure, x_range=(start, t_end),
                                       model=self.show_model, narrow=self.narrow))
             return
-        if self.paused and not snap.replay:
-            return  # the live view holds still
         if snap.data_time is None:
             return
         end = snap.data_time
@@ -309,7 +313,7 @@ class LivestepApp(App[int]):
         self.selected = index
         if index is not None:
             self._move_cursor(index)
-        self._shown = None
+        self._shown = self._plotted = None
         if self.snap is not None:
             self._update_step(self.snap)
 
