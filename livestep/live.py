@@ -13,7 +13,9 @@ import signal
 import sys
 import threading
 import time
+from collections.abc import Sequence
 from pathlib import Path
+from typing import Protocol
 
 from rich.console import Console
 
@@ -25,7 +27,7 @@ from livestep.sinks.console import ConsoleSink, JsonLinesSink, counters_table
 from livestep.sinks.recorder import Recorder
 from livestep.sources.serial_port import PortSettings, SerialReader
 
-__all__ = ["describe_decoder", "run_live", "run_replay"]
+__all__ = ["Driver", "describe_decoder", "run_live", "run_replay"]
 
 
 def describe_decoder(decoder: Decoder) -> str:
@@ -58,40 +60,76 @@ def _stop_on_sigterm(stop: threading.Event):
         signal.signal(signal.SIGTERM, previous)
 
 
+class Driver(Protocol):
+    """Something that acts on the link during a live session (a step plan): the loop calls
+    :meth:`begin` once the port is open, :meth:`poll` between reads (``True`` ends the
+    session), :meth:`on_state` on link changes, and :meth:`end` (``done``, ``stopped``,
+    ``interrupted`` or ``error``) before the port closes, whatever ends the session."""
+
+    def begin(self, link: SerialReader, session: Session) -> None: ...
+
+    def poll(self) -> bool: ...
+
+    def on_state(self, state: str) -> None: ...
+
+    def end(self, reason: str) -> None: ...
+
+    @property
+    def exit_status(self) -> int: ...
+
+
 def run_live(port: PortSettings, decoder: Decoder, settings: AnalysisSettings, *,
              record: Path | None, raw: Path | None = None, duration: float | None = None,
-             json_lines: bool = False) -> int:
-    """Read, decode, record and analyse until stopped; returns the exit status."""
+             json_lines: bool = False, driver: Driver | None = None,
+             sinks: Sequence[Sink] = (), print_steps: bool = True,
+             source: str | None = None) -> int:
+    """Read, decode, record and analyse until stopped (Ctrl-C, SIGTERM, ``duration`` or the
+    driver); returns the exit status. ``sinks`` listen besides the step printer
+    (``print_steps``) and the recorder; ``source`` names the link in the recording."""
     status_console = Console(stderr=True, highlight=False)
     reader = SerialReader(port)
     reader.start()  # a port that cannot be opened ends here, before any file is made
-    sinks = [_step_sink(json_lines)]
+    all_sinks = ([_step_sink(json_lines)] if print_steps else []) + list(sinks)
     recorder = None
     if record is not None:
         recorder = Recorder(record, raw_path=raw, metadata=lambda: {
-            "source": port.url, "decoder": describe_decoder(decoder)})
-        sinks.append(recorder)
+            "source": source or port.url, "decoder": describe_decoder(decoder)})
+        all_sinks.append(recorder)
         status_console.print(f"recording to {recorder.path}")
 
-    session = Session(decoder, settings, sinks)
+    session = Session(decoder, settings, all_sinks)
     stop = threading.Event()
     status = EXIT_OK
+    reason = "stopped"
     end = time.monotonic() + duration if duration else None
+    if driver is not None:
+        driver.begin(reader, session)
     try:
         with _stop_on_sigterm(stop):
             while not stop.is_set() and (end is None or time.monotonic() < end):
                 try:
-                    kind, payload = reader.events.get(timeout=0.2)
+                    kind, payload = reader.events.get(timeout=0.05 if driver else 0.2)
                 except queue.Empty:
                     session.tick()
-                    continue
-                _handle(session, reader, kind, payload)
+                else:
+                    _handle(session, reader, kind, payload)
+                    if kind == "state" and driver is not None:
+                        driver.on_state(str(payload))
+                if driver is not None and driver.poll():
+                    reason = "done"
+                    break
     except KeyboardInterrupt:
-        pass
+        reason = "interrupted"
     except InputError as exc:
         status_console.print(f"livestep: error: {exc}")
         status = exc.exit_status
+        reason = "error"
+    except BaseException:
+        reason = "error"
+        raise
     finally:
+        if driver is not None:
+            driver.end(reason)
         reader.stop()
         with contextlib.suppress(InputError):
             while True:
@@ -106,6 +144,8 @@ def run_live(port: PortSettings, decoder: Decoder, settings: AnalysisSettings, *
             status_console.print(f"recorded {recorder.rows} samples to {recorder.path}")
         elif recorder is not None:
             status_console.print("no samples received: no recording written")
+    if status == EXIT_OK and driver is not None:
+        status = driver.exit_status
     return status
 
 

@@ -8,6 +8,7 @@ the open step: steps never span a restart.
 from __future__ import annotations
 
 import gzip
+import math
 import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import replace
@@ -115,6 +116,14 @@ class Session:
         self._analyzer: StepAnalyzer | None = None
         self._segment = 0
         self._closed = False
+        self._marks: list[tuple[float, tuple[tuple[str, str], ...]]] = []
+
+    def tag_after(self, t: float | None, tags: tuple[tuple[str, str], ...]) -> None:
+        """Attach ``tags`` to every step whose instant is later than device time ``t``
+        (seconds, the session's time base; ``None``: from the first sample on), until the
+        next call. A plan runner calls it with :attr:`last_t` just before it sends a
+        command, so the steps that command causes carry the plan entry."""
+        self._marks.append((-math.inf if t is None else t, tuple(tags)))
 
     @property
     def counters(self) -> LinkCounters:
@@ -171,12 +180,19 @@ class Session:
 
     def _publish(self, results: list[StepResult]) -> list[StepResult]:
         """Number the steps across segments (each has its own detector) and hand them on."""
-        out = [replace(r, index=len(self.results) + k) for k, r in enumerate(results)]
+        out = [replace(r, index=len(self.results) + k, tags=r.tags + self._tags_at(r))
+               for k, r in enumerate(results)]
         self.results += out
         for r in out:
             for s in self.sinks:
                 s.on_step(r)
         return out
+
+    def _tags_at(self, r: StepResult) -> tuple[tuple[str, str], ...]:
+        for t, tags in reversed(self._marks):
+            if t < r.metrics.t_step:
+                return tags
+        return ()
 
 
 def replay_file(path: Path, session: Session, *, speed: float | None = 1.0,
