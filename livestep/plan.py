@@ -155,7 +155,10 @@ def _gain_sets(doc: dict[str, Any], src: str) -> list[tuple[str, dict[str, float
     sets = []
     for k, g in enumerate(raw, start=1):
         name = g.get("name", f"set {k}")
-        values = {key: _num(g, key, f"{src}, gains {k}") for key in g if key != "name"}
+        for key in g:
+            if key != "name":
+                _num(g, key, f"{src}, gains {k}")  # a number; kept as written (20, not 20.0)
+        values = {key: g[key] for key in g if key != "name"}
         if not values:
             raise InputError(f"gain set {k} has no gains", source=src)
         sets.append((str(name), values))  # type: ignore[arg-type]
@@ -175,7 +178,6 @@ def parse_plan(doc: dict[str, Any], source: str = "plan") -> Plan:
             or any(isinstance(x, bool) or not isinstance(x, int | float)
                    or not math.isfinite(x) for x in levels)):
         raise InputError("levels must be a non-empty list of numbers", source=src)
-    levels = [float(x) for x in levels]
     dwell = _num(doc, "dwell", src, positive=True)
     if dwell is None:
         raise InputError("dwell (seconds at each level) is missing", source=src)
@@ -217,9 +219,10 @@ def parse_plan(doc: dict[str, Any], source: str = "plan") -> Plan:
             out.append(PlanCommand(entry=len(out) + 1, kind="gains", text=text, dwell=settle,  # type: ignore[arg-type]
                                    tags=gain_tags))
         for r in range(repeats):
-            for level in levels:
+            for written in levels:
+                level = float(written)
                 entry = len(out) + 1
-                text = _render(sp_template, "setpoint", src, value=level)
+                text = _render(sp_template, "setpoint", src, value=written)
                 tags = (("plan_entry", str(entry)), ("setpoint", f"{level:g}"),
                         ("repeat", str(r + 1)), *gain_tags)
                 out.append(PlanCommand(entry=entry, kind="setpoint", text=text, dwell=dwell,
@@ -228,7 +231,7 @@ def parse_plan(doc: dict[str, Any], source: str = "plan") -> Plan:
     if safe is not None:
         safe = _render(safe, "safe", src)
     elif rest is not None:
-        safe = _render(sp_template, "setpoint", src, value=rest)
+        safe = _render(sp_template, "setpoint", src, value=doc["rest"])
     plan = Plan(commands=tuple(out), safe=safe, eol=eol, rest=rest, limits=_limits(doc, src),
                 lead_in=lead_in, source=src)  # type: ignore[arg-type]
     if plan.limits is not None:

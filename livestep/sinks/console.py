@@ -19,13 +19,14 @@ def _ms(x: float | None) -> str:
 
 
 def step_line(r: StepResult) -> str:
-    """One line summing up a step: amplitude, rise, overshoot, settling, model."""
+    """One line summing up a step: amplitude, rise, overshoot, settling, model, tags."""
     m, f = r.metrics, r.model
     settle = _ms(m.settling_time) if m.settled else "not settled"
     model = f", zeta {f.zeta:.3f}, wn {f.wn:.4g} rad/s" if f is not None else ""
+    tags = f" [{' '.join(f'{k}={v}' for k, v in r.tags)}]" if r.tags else ""
     return (f"step {r.index} at {m.t_step:.3f} s: {m.direction} {m.amplitude:+.4g},"
             f" rise {_ms(m.rise_time)}, overshoot {m.overshoot_pct:.1f} %,"
-            f" settling {settle}{model}")
+            f" settling {settle}{model}{tags}")
 
 
 def counters_table(c: LinkCounters) -> Table:
