@@ -115,3 +115,17 @@ def test_plan_file_errors_name_the_file_and_line(write_file, tmp_path):
     bad = write_file("bad.toml", "levels = [1, 2]\ndwell = = 1\n")
     with pytest.raises(InputError, match="bad.toml: not valid TOML: .*line 2"):
         load_plan_file(bad)
+
+
+def test_the_readme_plan_is_the_shipped_fixture_and_is_sendable():
+    import re
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parent.parent
+    block = re.search(r"```toml\n(.*?)```", (root / "README.md").read_text(), re.S)
+    assert block is not None
+    assert block.group(1) == (root / "fixtures" / "axis-plan.toml").read_text()
+    plan = parse_plan(load_plan_file(root / "fixtures" / "axis-plan.toml"))
+    check_sendable(plan)
+    assert [c.text for c in plan.commands[:3]] == ["gains kp=20 ki=60 kd=0.1", "sp 2", "sp 0"]
+    assert plan.safe == "sp 0"

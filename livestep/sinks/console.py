@@ -50,7 +50,7 @@ class ConsoleSink(Sink):
         self.console = console
 
     def on_step(self, result: StepResult) -> None:
-        self.console.print(step_line(result), highlight=False)
+        self.console.print(step_line(result), highlight=False, markup=False, soft_wrap=True)
         for w in result.warnings:
             self.console.print(f"  [yellow]{w}[/]")
 
