@@ -10,12 +10,15 @@ from livestep.analysis import AnalysisSettings, StepAnalyzer, StepResult, analyz
 from livestep.detect import DetectorSettings, StepDetector, StepWindow
 from livestep.measure import MeasureSettings, StepMetrics, measure_step
 from livestep.model_fit import ClosedFormEstimate, ModelFit, closed_form_estimate, fit_second_order
+from livestep.profile import Profile, load_profile
 from livestep.samples import SampleChunk
+from livestep.verdict import StepVerdict, judge
 
 __version__ = "0.1.0"
 
 __all__ = [
     "AnalysisSettings", "ClosedFormEstimate", "DetectorSettings", "MeasureSettings", "ModelFit",
-    "SampleChunk", "StepAnalyzer", "StepDetector", "StepMetrics", "StepResult", "StepWindow",
-    "analyze_chunks", "closed_form_estimate", "fit_second_order", "measure_step",
+    "Profile", "SampleChunk", "StepAnalyzer", "StepDetector", "StepMetrics", "StepResult",
+    "StepVerdict", "StepWindow", "analyze_chunks", "closed_form_estimate", "fit_second_order",
+    "judge", "load_profile", "measure_step",
 ]

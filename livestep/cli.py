@@ -1,7 +1,8 @@
 """The ``livestep`` command line.
 
-Exit statuses: 0 success; 2 bad input or options (one line on stderr);
-1 internal error (one line on stderr; a bug); 130 interrupted.
+Exit statuses: 0 success; 1 a judged step failed its profile (or no step was found to
+judge), or an internal error (one line on stderr; a bug); 2 bad input or options (one
+line on stderr); 130 interrupted.
 """
 
 from __future__ import annotations
@@ -18,11 +19,13 @@ from livestep.analysis import AnalysisSettings, analyze_chunks
 from livestep.decode.text import DELIMITERS, TextFormat
 from livestep.decode.timebase import ClockSettings
 from livestep.detect import DetectorSettings
-from livestep.errors import EXIT_INTERRUPTED, EXIT_OK, InputError
+from livestep.errors import EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK, InputError
 from livestep.live import run_live, run_replay
 from livestep.measure import MeasureSettings
+from livestep.profile import Profile, load_profile
 from livestep.recording import TIME_UNITS, ColumnMap, RecordingReader, read_ahead
 from livestep.session import Decoder, make_decoder
+from livestep.verdict import StepVerdict
 
 __all__ = ["main"]
 
@@ -55,21 +58,26 @@ def _add_analysis_options(p: argparse.ArgumentParser) -> None:
     m.add_argument("--min-step", type=_positive, metavar="X",
                    help="smallest setpoint change that is a step, setpoint units (default:"
                    " 10 x the feedback noise before it)")
-    m.add_argument("--rise-levels", type=_levels, default=(10.0, 90.0), metavar="LO,HI",
-                   help="rise-time reference levels, %% of amplitude (default 10,90)")
-    m.add_argument("--settling-band", type=_positive, default=2.0, metavar="PCT",
-                   help="settling band, +-%% of amplitude (default 2)")
+    m.add_argument("--rise-levels", type=_levels, metavar="LO,HI",
+                   help="rise-time reference levels, %% of amplitude (default: the profile's,"
+                   " else 10,90)")
+    m.add_argument("--settling-band", type=_positive, metavar="PCT",
+                   help="settling band, +-%% of amplitude (default: the profile's, else 2)")
     m.add_argument("--max-window", type=_positive, default=120.0, metavar="S",
                    help="longest step window, seconds (default 120)")
     m.add_argument("--no-fit", action="store_true", help="skip the second-order model fit")
 
 
-def _analysis_settings(args: argparse.Namespace) -> AnalysisSettings:
+def _analysis_settings(args: argparse.Namespace,
+                       profile: Profile | None = None) -> AnalysisSettings:
+    """Options first, then the profile's settling band and rise levels, then defaults."""
+    default = MeasureSettings()
+    band = args.settling_band or (profile and profile.settling_band) or default.settling_band
+    levels = args.rise_levels or (profile and profile.rise_levels) or default.rise_levels
     try:
         return AnalysisSettings(
             detect=DetectorSettings(min_step=args.min_step, max_window=args.max_window),
-            measure=MeasureSettings(rise_levels=args.rise_levels,
-                                    settling_band=args.settling_band),
+            measure=MeasureSettings(rise_levels=levels, settling_band=band),
             fit_model=not args.no_fit)
     except ValueError as exc:
         raise InputError(str(exc)) from None
@@ -128,6 +136,9 @@ def build_parser() -> argparse.ArgumentParser:
     out = a.add_mutually_exclusive_group()
     out.add_argument("--json", action="store_true", help="one JSON document on stdout")
     out.add_argument("--csv", action="store_true", help="one CSV row per step on stdout")
+    a.add_argument("--profile", metavar="TOML",
+                   help="tolerance profile: judge every step; exit status 1 when any step"
+                   " fails (or none is found)")
     cols = a.add_argument_group("columns")
     cols.add_argument("--time", default="t", metavar="COL", help="time column (default t)")
     cols.add_argument("--setpoint", metavar="COL",
@@ -248,7 +259,8 @@ def _add_sim_options(p: argparse.ArgumentParser) -> None:
 
 
 def _analyze(args: argparse.Namespace) -> int:
-    settings = _analysis_settings(args)
+    profile = load_profile(args.profile) if args.profile else None
+    settings = _analysis_settings(args, profile)
     reader = RecordingReader(args.file, ColumnMap(
         time=args.time, setpoint=args.setpoint, feedback=args.feedback,
         time_unit=args.time_unit))
@@ -262,20 +274,40 @@ def _analyze(args: argparse.Namespace) -> int:
         notes.append(f"dropped {st.repeated_time} rows repeating the previous timestamp")
     if not reader.has_setpoint:
         notes.append("no setpoint column: steps found from the feedback alone")
+    verdicts = None
+    if profile is not None:
+        from livestep.verdict import judge
+        verdicts = [judge(r, profile) for r in results]
+        notes.append(verdict_summary([v.verdict for v in verdicts], profile.name))
     for n in notes:
         print(f"livestep: {n}", file=sys.stderr)
     if args.json:
         from livestep.report import analysis_document, write_json
-        write_json(analysis_document(str(args.file), st.good, results, notes), sys.stdout)
+        write_json(analysis_document(str(args.file), st.good, results, notes,
+                                     verdicts=verdicts, profile=profile), sys.stdout)
     elif args.csv:
         from livestep.report import write_csv
-        write_csv(results, sys.stdout)
+        write_csv(results, sys.stdout, verdicts)
     else:
         from rich.console import Console
 
         from livestep.report import render_table
         render_table(results, Console(), title=f"{args.file}: {len(results)} steps,"
-                     f" {st.good} samples")
+                     f" {st.good} samples", verdicts=verdicts)
+    return EXIT_OK if verdicts is None else gate_status(verdicts)
+
+
+def verdict_summary(verdicts: Sequence[str], profile_name: str) -> str:
+    """One line: "profile 'x': 12 steps, 10 pass, 1 warn, 1 fail"."""
+    counts = ", ".join(f"{verdicts.count(v)} {v}" for v in ("pass", "warn", "fail"))
+    return f"profile {profile_name!r}: {len(verdicts)} steps, {counts}"
+
+
+def gate_status(verdicts: Sequence[StepVerdict]) -> int:
+    """Exit status of a judged run: 0 when every step passed (or warned), 1 when any
+    failed or when there was no step to judge."""
+    if not verdicts or any(v.verdict == "fail" for v in verdicts):
+        return EXIT_FAIL
     return EXIT_OK
 
 
@@ -289,6 +321,7 @@ def _live(args: argparse.Namespace) -> int:
     if args.rate:
         print(f"livestep: no device time: samples stamped from their count at {args.rate:g} Hz"
               " (host arrival times come in bursts and are not used)", file=sys.stderr)
+    settings, decoder = _analysis_settings(args), _decoder(args)  # bad options fail first
     plan = _plan(args)
     driver = None
     if plan is not None:
@@ -306,7 +339,6 @@ def _live(args: argparse.Namespace) -> int:
         driver = PlanRunner(plan)
     elif args.send:
         raise InputError("--send needs a plan (--plan FILE or --levels)")
-    settings, decoder = _analysis_settings(args), _decoder(args)
     record = None
     if not args.no_record:
         record = Path(args.record or time.strftime("livestep-%Y%m%d-%H%M%S.csv"))

@@ -15,6 +15,7 @@ import pytest
 from scipy import signal
 
 from livestep.cli import main
+from livestep.quantities import QUANTITIES
 
 ROOT = Path(__file__).resolve().parent.parent
 ZETA, WN, RATE = 0.4, 30.0, 2000.0
@@ -133,3 +134,80 @@ def test_shipped_example_runs(capsys):
                                "--json")
     assert status == 0, err
     assert len(json.loads(out)["steps"]) == 8
+
+
+# %OS of the recording's loop, closed form (Ogata): 25.4 % at zeta = 0.4.
+OS_PCT = 100 * math.exp(-ZETA * math.pi / math.sqrt(1 - ZETA**2))
+
+
+def test_profile_verdicts_in_json_and_exit_status(capsys, recording, write_file):
+    loose = write_file("loose.toml", "[limits]\novershoot_pct = { max = 30 }\n")
+    status, out, err = run_cli(capsys, "analyze", str(recording), "--json", "--profile",
+                               str(loose))
+    doc = json.loads(out)
+    assert status == 0, err
+    assert doc["profile"] == {"name": "loose", "source": str(loose)}
+    assert [s["verdict"] for s in doc["steps"]] == ["pass"] * 3
+    check = doc["steps"][0]["checks"][0]
+    assert check["quantity"] == "overshoot_pct" and check["max"] == 30
+    assert check["value"] == pytest.approx(OS_PCT, abs=0.3)
+    assert check["margin"] == pytest.approx(30 - check["value"])
+    assert "3 steps, 3 pass, 0 warn, 0 fail" in err
+    # Only the down step is held to 20 %: it alone fails, and the run's status is 1.
+    down = write_file("down.toml", "[limits]\novershoot_pct = { max = 30 }\n[[when]]\n"
+                      "direction = \"down\"\n[when.limits]\novershoot_pct = { max = 20 }\n")
+    status, out, _ = run_cli(capsys, "analyze", str(recording), "--json", "--profile",
+                             str(down))
+    steps = json.loads(out)["steps"]
+    assert status == 1 and [s["verdict"] for s in steps] == ["pass", "fail", "pass"]
+    assert steps[1]["checks"][0]["rule"] == "when #1"
+    assert steps[1]["checks"][0]["reason"] == "above the maximum 20 %"
+
+
+def test_profile_in_table_and_csv(capsys, recording, write_file):
+    tight = write_file("tight.toml", "[limits]\novershoot_pct = { max = 20 }\n")
+    status, out, _ = run_cli(capsys, "analyze", str(recording), "--profile", str(tight))
+    assert status == 1
+    assert out.count("✘ fail") == 3 + 3  # the verdict column and one line per failed check
+    assert "overshoot 25.4 % (max 20 %): above the maximum 20 %" in out
+    status, out, _ = run_cli(capsys, "analyze", str(recording), "--csv", "--profile",
+                             str(tight))
+    rows = list(csv.DictReader(io.StringIO(out)))
+    assert [(r["verdict"], r["failed"]) for r in rows] == [("fail", "overshoot_pct")] * 3
+
+
+def test_profile_sets_the_settling_band_unless_the_option_does(capsys, recording, write_file):
+    def settling(*argv):
+        _, out, _ = run_cli(capsys, "analyze", str(recording), "--json", *argv)
+        return [s["settling_time"] for s in json.loads(out)["steps"]]
+
+    wide = write_file("wide.toml", "settling_band = 5\n[limits]\nzeta = { min = 0.1 }\n")
+    by_option = settling("--settling-band", "5")
+    assert settling("--profile", str(wide)) == by_option
+    assert settling() != by_option  # the 2 % default differs
+    assert settling("--profile", str(wide), "--settling-band", "2") == settling()
+
+
+def test_no_step_to_judge_fails_the_gate(capsys, tmp_path, write_file):
+    flat = tmp_path / "flat.csv"
+    flat.write_text("t,setpoint,feedback\n" + "".join(f"{i / 100},1,1\n" for i in range(500)))
+    profile = write_file("p.toml", "[limits]\nzeta = { min = 0.1 }\n")
+    status, _, err = run_cli(capsys, "analyze", str(flat), "--profile", str(profile))
+    assert status == 1 and "0 steps" in err
+
+
+def test_bad_profile_is_one_line_with_status_2(capsys, recording, write_file):
+    bad = write_file("bad.toml", "[limits]\novershot_pct = { max = 10 }\n")
+    status, out, err = run_cli(capsys, "analyze", str(recording), "--profile", str(bad))
+    assert status == 2 and out == ""
+    assert err == f"livestep: error: {bad}, line 2: limits.overshot_pct: unknown key (expected" \
+        f" one of {', '.join(sorted(QUANTITIES))})\n"
+
+
+def test_shipped_profile_judges_the_shipped_example(capsys):
+    # The demo recording's loop is retuned from zeta 0.35 to 1.3 (tools/make_demo.py); the
+    # line spec asks zeta >= 0.5 and at most 10 % overshoot, so the first steps fail.
+    status, out, _ = run_cli(capsys, "analyze", str(ROOT / "fixtures" / "belt-axis.csv"),
+                             "--json", "--profile", str(ROOT / "fixtures" / "belt-axis-spec.toml"))
+    verdicts = [s["verdict"] for s in json.loads(out)["steps"]]
+    assert status == 1 and verdicts[:2] == ["fail", "fail"] and "pass" in verdicts
