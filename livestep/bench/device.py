@@ -83,6 +83,7 @@ class VirtualBench:
         self.received: list[str] = []
         self.notes: list[str] = []
         self.samples = 0  # samples simulated
+        self.cpu_time = 0.0  # CPU seconds the controller thread has used
         self._seq = 0
         self._inbuf = b""
         self._out: list[bytes] = []  # notes waiting to be sent before the next block
@@ -172,13 +173,14 @@ class VirtualBench:
             self._serve_requests()
             self._apply_commands()
             due = int((time.monotonic() - start) * s.speed * s.rate) - self.samples
-            if due <= 0:
-                self._wait_input(min(s.block, -due / (s.speed * s.rate) + 1e-3))
+            if due < per_block:  # one write per block of samples, not per sample
+                self._wait_input((per_block - due) / (s.speed * s.rate))
                 continue
             n = min(due, 10 * per_block)
             data = self._block(n)
             self._write(b"".join(self._out) + data)
             self._out.clear()
+            self.cpu_time = time.thread_time()
 
     def _block(self, n: int) -> bytes:
         """The next ``n`` samples, encoded (nothing while streaming is off)."""
