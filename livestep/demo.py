@@ -10,12 +10,14 @@ live session is. It ends by itself when the plan is done.
 
 The pieces are reusable: a terminal UI takes over by building ``demo_bench()``,
 ``demo_plan()`` and ``demo_decoder()`` itself, or by passing its own sink to
-``run_demo(sinks=[...], print_steps=False)``.
+``run_demo(sinks=[...], print_steps=False, stop=event)`` in a worker thread (setting ``event``
+ends the session: the safe command goes to the bench and the recording is closed).
 """
 
 from __future__ import annotations
 
 import sys
+import threading
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -78,8 +80,10 @@ def demo_decoder() -> Decoder:
 
 def run_demo(*, quick: bool = False, record: Path | None = None, fmt: str = "text",
              seed: int = 1, json_lines: bool = False, sinks: Sequence[Sink] = (),
-             print_steps: bool = True, settings: AnalysisSettings | None = None) -> int:
-    """Run the demo to the end of its plan; returns the exit status (0 when the plan ran)."""
+             print_steps: bool = True, settings: AnalysisSettings | None = None,
+             stop: threading.Event | None = None) -> int:
+    """Run the demo to the end of its plan (or until ``stop`` is set, from another thread);
+    returns the exit status (0 when the plan ran to its end)."""
     bench = demo_bench(fmt=fmt, seed=seed)
     path = bench.start()
     plan = demo_plan(quick)
@@ -91,6 +95,6 @@ def run_demo(*, quick: bool = False, record: Path | None = None, fmt: str = "tex
                         settings if settings is not None else AnalysisSettings(),
                         record=record, json_lines=json_lines, sinks=sinks,
                         print_steps=print_steps, driver=PlanRunner(plan),
-                        source=f"livestep demo (virtual bench on {path})")
+                        source=f"livestep demo (virtual bench on {path})", stop=stop)
     finally:
         bench.stop()

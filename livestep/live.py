@@ -82,10 +82,11 @@ def run_live(port: PortSettings, decoder: Decoder, settings: AnalysisSettings, *
              record: Path | None, raw: Path | None = None, duration: float | None = None,
              json_lines: bool = False, driver: Driver | None = None,
              sinks: Sequence[Sink] = (), print_steps: bool = True,
-             source: str | None = None) -> int:
-    """Read, decode, record and analyse until stopped (Ctrl-C, SIGTERM, ``duration`` or the
-    driver); returns the exit status. ``sinks`` listen besides the step printer
-    (``print_steps``) and the recorder; ``source`` names the link in the recording."""
+             source: str | None = None, stop: threading.Event | None = None) -> int:
+    """Read, decode, record and analyse until stopped (Ctrl-C, SIGTERM, ``duration``, the
+    driver, or ``stop`` set from another thread, e.g. a UI's quit); returns the exit status.
+    ``sinks`` listen besides the step printer (``print_steps``) and the recorder; ``source``
+    names the link in the recording."""
     status_console = Console(stderr=True, highlight=False)
     reader = SerialReader(port)
     reader.start()  # a port that cannot be opened ends here, before any file is made
@@ -98,7 +99,7 @@ def run_live(port: PortSettings, decoder: Decoder, settings: AnalysisSettings, *
         status_console.print(f"recording to {recorder.path}")
 
     session = Session(decoder, settings, all_sinks)
-    stop = threading.Event()
+    stop = stop if stop is not None else threading.Event()
     status = EXIT_OK
     reason = "stopped"
     end = time.monotonic() + duration if duration else None

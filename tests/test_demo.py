@@ -33,3 +33,30 @@ def test_demo_measures_every_planned_step_and_records_them(tmp_path, capsys):
     os_ = [s["overshoot_pct"] for s in doc["steps"]]
     soft, medium, firm = (sum(os_[k:k + 2]) / 2 for k in (0, 2, 4))
     assert soft > medium > firm, os_
+
+
+def test_demo_stops_when_asked_and_sends_the_safe_command(tmp_path, capsys):
+    # how a terminal UI runs it: in a worker thread, with its own sink, ended by an event
+    import threading
+
+    from livestep.demo import run_demo
+    from livestep.sinks.base import Sink
+
+    class Steps(Sink):
+        def __init__(self) -> None:
+            self.steps = []
+
+        def on_step(self, result) -> None:
+            self.steps.append(result)
+
+    sink, stop, status = Steps(), threading.Event(), []
+    worker = threading.Thread(target=lambda: status.append(run_demo(
+        record=None, sinks=[sink], print_steps=False, stop=stop)))
+    worker.start()
+    threading.Timer(2.5, stop.set).start()
+    worker.join(30)
+    err = capsys.readouterr().err
+    assert status == [130]  # stopped before the plan's end
+    assert "plan: sent the safe command 'sp 0'" in err
+    assert 1 <= len(sink.steps) < 12
+    assert dict(sink.steps[0].tags)["gains"] == "soft"

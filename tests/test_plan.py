@@ -2,7 +2,12 @@
 
 from __future__ import annotations
 
+import re
+from pathlib import Path
+
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from livestep.errors import InputError
 from livestep.plan import check_sendable, describe_plan, load_plan_file, parse_plan
@@ -118,9 +123,6 @@ def test_plan_file_errors_name_the_file_and_line(write_file, tmp_path):
 
 
 def test_the_readme_plan_is_the_shipped_fixture_and_is_sendable():
-    import re
-    from pathlib import Path
-
     root = Path(__file__).resolve().parent.parent
     block = re.search(r"```toml\n(.*?)```", (root / "README.md").read_text(), re.S)
     assert block is not None
@@ -129,3 +131,23 @@ def test_the_readme_plan_is_the_shipped_fixture_and_is_sendable():
     check_sendable(plan)
     assert [c.text for c in plan.commands[:3]] == ["gains kp=20 ki=60 kd=0.1", "sp 2", "sp 0"]
     assert plan.safe == "sp 0"
+
+
+@settings(max_examples=150, deadline=None)
+@given(levels=st.lists(st.floats(-5, 5, allow_nan=False).map(lambda x: round(x, 2)),
+                       min_size=1, max_size=6),
+       rest=st.floats(-5, 5).map(lambda x: round(x, 2)), repeats=st.integers(1, 3))
+def test_limits_accept_exactly_the_plans_that_respect_them(levels, rest, repeats):
+    # The rule written out independently: every level and rest in [-2, 2]; every change
+    # along rest, levels, levels (repeats times) at most 1.5.
+    lo, hi, max_step = -2.0, 2.0, 1.5
+    seq = [rest] + levels * repeats
+    ok = (all(lo <= x <= hi for x in seq)
+          and all(abs(b - a) <= max_step for a, b in zip(seq, seq[1:], strict=False)))
+    doc = base(levels=levels, rest=rest, repeats=repeats)
+    if ok:
+        plan = parse_plan(doc)
+        assert [c.value for c in plan.commands] == levels * repeats
+    else:
+        with pytest.raises(InputError):
+            parse_plan(doc)
