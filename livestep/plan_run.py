@@ -6,6 +6,9 @@ command through the link at its time, tags the session so the steps each command
 carry its plan entry, and when the plan is done, or on Ctrl-C, SIGTERM, an error or a lost
 link, sends the safe command once if the link is up.
 
+One command is sent at a time, and each gets its whole dwell from the moment it was sent
+(a command delayed by a busy moment never shortens the next level or bunches commands up).
+
 A lost link is a ``disconnected`` port, a write that fails, or no samples for
 ``silence`` seconds. The plan then stops for good; the safe command goes out as soon as the
 link is up again (the port reopens by itself), or is reported as not sent after
@@ -93,19 +96,20 @@ class PlanRunner:
         elif now - self._last_data > self.silence:
             self._lose(f"no samples for {self.silence:g} s")
             return self._after_loss(now)
-        while self._due is not None and now >= self._due:
-            if self._next >= len(self.plan.commands):
-                self.outcome = "done"
-                self._finished = True
-                return True
-            cmd = self.plan.commands[self._next]
-            if cmd.kind == "setpoint":
-                session.tag_after(session.last_t, cmd.tags)
-            if not self._send(cmd.text):
-                return self._after_loss(now)
-            self.out(f"plan: {cmd.entry}/{len(self.plan.commands)} sent {cmd.text!r}")
-            self._next += 1
-            self._due += cmd.dwell
+        if self._due is None or now < self._due:
+            return False
+        if self._next >= len(self.plan.commands):
+            self.outcome = "done"
+            self._finished = True
+            return True
+        cmd = self.plan.commands[self._next]
+        if cmd.kind == "setpoint":
+            session.tag_after(session.last_t, cmd.tags)
+        if not self._send(cmd.text):
+            return self._after_loss(now)
+        self.out(f"plan: {cmd.entry}/{len(self.plan.commands)} sent {cmd.text!r}")
+        self._next += 1
+        self._due = now + cmd.dwell  # a late command still gets its whole dwell
         return False
 
     def end(self, reason: str) -> None:

@@ -169,3 +169,39 @@ def test_a_lost_link_that_stays_lost_is_reported(tmp_path):
     assert status == 1
     assert lines[-1] == f"plan: the link is down: the safe command {SAFE!r} was NOT sent"
     assert SAFE not in b.received
+
+
+class FakeLink:
+    """The runner's view of a port (state and write), to drive it on a hand-set clock."""
+
+    def __init__(self) -> None:
+        self.state, self.written = "connected", []
+
+    def write(self, data: bytes) -> None:
+        self.written.append(data.decode())
+
+
+def test_each_level_gets_its_whole_dwell_even_after_a_late_command():
+    from livestep.session import Session
+
+    now = [0.0]
+    link, session = FakeLink(), Session(make_decoder("text", clock=US32))
+    runner = PlanRunner(a_plan(levels=(1.0, 0.0, 1.0), dwell=0.4), clock=lambda: now[0],
+                        out=lambda _: None, silence=100.0)
+    runner.begin(link, session)
+
+    def at(t: float) -> bool:
+        now[0] = t
+        session.feed(b"%d,0,0\n" % int(100 + t * 1e6))  # a sample keeps the link alive
+        return runner.poll()
+
+    # the text decoder settles the format after eight data lines
+    session.feed(b"t,setpoint,feedback\n" + b"".join(b"%d,0,0\n" % k for k in range(10)))
+    assert not at(0.0) and link.written == []  # lead-in 0.3 s from the first sample
+    assert not at(0.31) and link.written == ["sp 1.000\n"]
+    assert not at(2.0) and len(link.written) == 2  # late (busy): one command, not a burst
+    assert not at(2.39) and len(link.written) == 2  # the level still gets its 0.4 s
+    assert not at(2.41) and len(link.written) == 3
+    assert at(2.82) and runner.outcome == "done"
+    runner.end("done")
+    assert link.written[-1] == SAFE + "\n" and runner.exit_status == 0
