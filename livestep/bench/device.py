@@ -112,7 +112,8 @@ class VirtualBench:
             link.unlink()
 
     def unplug(self) -> None:
-        """Close the pty, as pulling the cable does; the program reading it sees an error."""
+        """Close the pty and remove ``settings.link``, as pulling the cable does; the program
+        reading it sees an error."""
         self._request("unplug")
 
     def replug(self) -> None:
@@ -296,6 +297,9 @@ class VirtualBench:
             except queue.Empty:
                 return
             self._close()
+            link = self.settings.link
+            if link is not None and link.is_symlink():
+                link.unlink()  # as udev removes a /dev/serial/by-id link on unplug
             if what == "replug":
                 self._open()
                 self._inbuf = b""
