@@ -94,8 +94,8 @@ class Plan:
 
     def setpoints(self) -> list[float]:
         """The setpoint sequence sent, starting from ``rest`` when known."""
-        values = [c.value for c in self.commands if c.kind == "setpoint"]
-        return ([] if self.rest is None else [self.rest]) + values  # type: ignore[list-item]
+        values = [c.value for c in self.commands if c.value is not None]
+        return ([] if self.rest is None else [self.rest]) + values
 
 
 def load_plan_file(path: str | Path) -> dict[str, Any]:
@@ -114,6 +114,7 @@ def load_plan_file(path: str | Path) -> dict[str, Any]:
 
 def _num(doc: dict[str, Any], key: str, src: str, default: float | None = None, *,
          positive: bool = False) -> float | None:
+    """``doc[key]`` as a float (``default`` when absent); one line for anything else."""
     if key not in doc:
         return default
     x = doc[key]
@@ -122,6 +123,12 @@ def _num(doc: dict[str, Any], key: str, src: str, default: float | None = None, 
     if positive and not x > 0:
         raise InputError(f"{key} must be positive", source=src)
     return float(x)
+
+
+def _seconds(doc: dict[str, Any], key: str, src: str, default: float) -> float:
+    value = _num(doc, key, src, default, positive=True)
+    assert value is not None
+    return value
 
 
 def _fields(template: str, what: str, src: str) -> set[str]:
@@ -148,21 +155,69 @@ def _render(template: str, what: str, src: str, **values: object) -> str:
     return text
 
 
-def _gain_sets(doc: dict[str, Any], src: str) -> list[tuple[str, dict[str, float]]]:
+GainSet = tuple[str, dict[str, int | float]]
+
+
+def _gain_sets(doc: dict[str, Any], src: str) -> list[GainSet]:
+    """The ``[[gains]]`` tables as (name, gains); values kept as written (20, not 20.0)."""
     raw = doc.get("gains", [])
     if not isinstance(raw, list) or not all(isinstance(g, dict) for g in raw):
         raise InputError("gains must be a list of tables ([[gains]])", source=src)
     sets = []
     for k, g in enumerate(raw, start=1):
-        name = g.get("name", f"set {k}")
-        for key in g:
-            if key != "name":
-                _num(g, key, f"{src}, gains {k}")  # a number; kept as written (20, not 20.0)
-        values = {key: g[key] for key in g if key != "name"}
+        values = {key: v for key, v in g.items() if key != "name"}
+        for key in values:
+            _num(values, key, f"{src}, gains {k}")
         if not values:
             raise InputError(f"gain set {k} has no gains", source=src)
-        sets.append((str(name), values))  # type: ignore[arg-type]
+        sets.append((str(g.get("name", f"set {k}")), values))
     return sets
+
+
+def _templates(doc: dict[str, Any], src: str, gains: bool) -> dict[str, str]:
+    """The ``[commands]`` table, checked: a setpoint template with only ``{value}``, a gains
+    template when there are gain sets, a known line ending."""
+    cmds = doc.get("commands", {})
+    if not isinstance(cmds, dict):
+        raise InputError("commands must be a table", source=src)
+    bad = sorted(set(cmds) - {"setpoint", "gains", "safe", "eol"})
+    if bad:
+        raise InputError(f"unknown key commands.{bad[0]}", source=src)
+    if not all(isinstance(v, str) for v in cmds.values()):
+        raise InputError("commands.* must be strings", source=src)
+    if "setpoint" not in cmds:
+        raise InputError("commands.setpoint (the setpoint command template) is missing",
+                         source=src)
+    if not _fields(cmds["setpoint"], "setpoint", src) <= {"value"}:
+        raise InputError(f"setpoint template {cmds['setpoint']!r}: its only field is"
+                         " {value}", source=src)
+    if gains and "gains" not in cmds:
+        raise InputError("gain sets need commands.gains (the gains command template)",
+                         source=src)
+    if cmds.get("eol", "\n") not in ("\n", "\r\n", "\r"):
+        raise InputError("commands.eol must be \\n, \\r\\n or \\r", source=src)
+    return cmds
+
+
+def _expand(levels: list[int | float], repeats: int, dwell: float, settle: float,
+            sets: list[GainSet], cmds: dict[str, str], src: str) -> list[PlanCommand]:
+    """Each gain set's command, then its levels ``repeats`` times, with their tags."""
+    out: list[PlanCommand] = []
+    for name, values in sets or [("", {})]:
+        gain_tags = (("gains", name),) if sets else ()
+        if sets:
+            text = _render(cmds["gains"], "gains", src, name=name, **values)
+            out.append(PlanCommand(entry=len(out) + 1, kind="gains", text=text, dwell=settle,
+                                   tags=gain_tags))
+        for r in range(repeats):
+            for written in levels:
+                level, entry = float(written), len(out) + 1
+                text = _render(cmds["setpoint"], "setpoint", src, value=written)
+                tags = (("plan_entry", str(entry)), ("setpoint", f"{level:g}"),
+                        ("repeat", str(r + 1)), *gain_tags)
+                out.append(PlanCommand(entry=entry, kind="setpoint", text=text, dwell=dwell,
+                                       value=level, tags=tags))
+    return out
 
 
 def parse_plan(doc: dict[str, Any], source: str = "plan") -> Plan:
@@ -178,62 +233,25 @@ def parse_plan(doc: dict[str, Any], source: str = "plan") -> Plan:
             or any(isinstance(x, bool) or not isinstance(x, int | float)
                    or not math.isfinite(x) for x in levels)):
         raise InputError("levels must be a non-empty list of numbers", source=src)
-    dwell = _num(doc, "dwell", src, positive=True)
-    if dwell is None:
+    if "dwell" not in doc:
         raise InputError("dwell (seconds at each level) is missing", source=src)
+    dwell = _seconds(doc, "dwell", src, 0.0)
     repeats = doc.get("repeats", 1)
     if isinstance(repeats, bool) or not isinstance(repeats, int) or repeats < 1:
         raise InputError("repeats must be a whole number >= 1", source=src)
     rest = _num(doc, "rest", src)
-    lead_in = _num(doc, "lead_in", src, dwell, positive=True)
-    settle = _num(doc, "gain_settle", src, 0.2, positive=True)
-    cmds = doc.get("commands", {})
-    if not isinstance(cmds, dict):
-        raise InputError("commands must be a table", source=src)
-    bad = sorted(set(cmds) - {"setpoint", "gains", "safe", "eol"})
-    if bad:
-        raise InputError(f"unknown key commands.{bad[0]}", source=src)
-    if not all(isinstance(v, str) for v in cmds.values()):
-        raise InputError("commands.* must be strings", source=src)
-    sp_template = cmds.get("setpoint")
-    if sp_template is None:
-        raise InputError("commands.setpoint (the setpoint command template) is missing",
-                         source=src)
-    if not _fields(sp_template, "setpoint", src) <= {"value"}:
-        raise InputError(f"setpoint template {sp_template!r}: its only field is {{value}}",
-                         source=src)
     sets = _gain_sets(doc, src)
-    gains_template = cmds.get("gains")
-    if sets and gains_template is None:
-        raise InputError("gain sets need commands.gains (the gains command template)",
-                         source=src)
-    eol = cmds.get("eol", "\n")
-    if eol not in ("\n", "\r\n", "\r"):
-        raise InputError("commands.eol must be \\n, \\r\\n or \\r", source=src)
-
-    out: list[PlanCommand] = []
-    for name, values in sets or [(None, {})]:
-        gain_tags = (("gains", name),) if name is not None else ()
-        if name is not None:
-            text = _render(gains_template, "gains", src, name=name, **values)  # type: ignore[arg-type]
-            out.append(PlanCommand(entry=len(out) + 1, kind="gains", text=text, dwell=settle,  # type: ignore[arg-type]
-                                   tags=gain_tags))
-        for r in range(repeats):
-            for written in levels:
-                level = float(written)
-                entry = len(out) + 1
-                text = _render(sp_template, "setpoint", src, value=written)
-                tags = (("plan_entry", str(entry)), ("setpoint", f"{level:g}"),
-                        ("repeat", str(r + 1)), *gain_tags)
-                out.append(PlanCommand(entry=entry, kind="setpoint", text=text, dwell=dwell,
-                                       value=level, tags=tags))
-    safe = cmds.get("safe")
-    if safe is not None:
-        safe = _render(safe, "safe", src)
+    cmds = _templates(doc, src, gains=bool(sets))
+    commands = _expand(levels, repeats, dwell, _seconds(doc, "gain_settle", src, 0.2), sets,
+                       cmds, src)
+    safe = None
+    if "safe" in cmds:
+        safe = _render(cmds["safe"], "safe", src)
     elif rest is not None:
-        safe = _render(sp_template, "setpoint", src, value=doc["rest"])
-    plan = Plan(commands=tuple(out), safe=safe, eol=eol, rest=rest, limits=_limits(doc, src),
-                lead_in=lead_in, source=src)  # type: ignore[arg-type]
+        safe = _render(cmds["setpoint"], "setpoint", src, value=doc["rest"])
+    plan = Plan(commands=tuple(commands), safe=safe, eol=cmds.get("eol", "\n"), rest=rest,
+                limits=_limits(doc, src), lead_in=_seconds(doc, "lead_in", src, dwell),
+                source=src)
     if plan.limits is not None:
         _check_limits(plan)
     return plan
