@@ -15,7 +15,7 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from livestep import __version__
-from livestep.analysis import AnalysisSettings, analyze_chunks
+from livestep.analysis import AnalysisSettings, StepResult, analyze_chunks
 from livestep.decode.text import DELIMITERS, TextFormat
 from livestep.decode.timebase import ClockSettings
 from livestep.detect import DetectorSettings
@@ -139,18 +139,19 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--profile", metavar="TOML",
                    help="tolerance profile: judge every step; exit status 1 when any step"
                    " fails (or none is found)")
-    cols = a.add_argument_group("columns")
-    cols.add_argument("--time", default="t", metavar="COL", help="time column (default t)")
-    cols.add_argument("--setpoint", metavar="COL",
-                      help="setpoint column (default: 'setpoint' if present, else steps are"
-                      " found from the feedback alone)")
-    cols.add_argument("--feedback", default="feedback", metavar="COL",
-                      help="feedback column (default feedback)")
-    cols.add_argument("--time-unit", default="s", choices=sorted(TIME_UNITS),
-                      help="unit of the time column (default s)")
-    _add_analysis_options(a)
-    a.add_argument("--jobs", type=int, default=min(os.cpu_count() or 1, 4), metavar="N",
-                   help="worker processes measuring steps (default: the CPU count, at most 4)")
+    _add_recording_options(a)
+
+    c = sub.add_parser("compare", help="compare the steps of two recordings, or of two tags"
+                       " of one, quantity by quantity")
+    c.add_argument("files", nargs="+", metavar="FILE",
+                   help="two recordings, A then B; or one, with --tags")
+    c.add_argument("--tags", nargs=2, metavar=("A", "B"),
+                   help="compare the steps carrying note A (name=value) with those carrying"
+                   " note B")
+    c.add_argument("--json", action="store_true", help="one JSON document on stdout")
+    c.add_argument("--profile", metavar="TOML",
+                   help="tolerance profile: its settling band and rise levels")
+    _add_recording_options(c)
 
     live = sub.add_parser("live", help="measure steps live from a serial port or URL,"
                           " recording everything")
@@ -258,14 +259,39 @@ def _add_sim_options(p: argparse.ArgumentParser) -> None:
                     help="measurement noise sigma, feedback units (default 0)")
 
 
-def _analyze(args: argparse.Namespace) -> int:
-    profile = load_profile(args.profile) if args.profile else None
-    settings = _analysis_settings(args, profile)
-    reader = RecordingReader(args.file, ColumnMap(
+def _add_recording_options(p: argparse.ArgumentParser) -> None:
+    cols = p.add_argument_group("columns")
+    cols.add_argument("--time", default="t", metavar="COL", help="time column (default t)")
+    cols.add_argument("--setpoint", metavar="COL",
+                      help="setpoint column (default: 'setpoint' if present, else steps are"
+                      " found from the feedback alone)")
+    cols.add_argument("--feedback", default="feedback", metavar="COL",
+                      help="feedback column (default feedback)")
+    cols.add_argument("--time-unit", default="s", choices=sorted(TIME_UNITS),
+                      help="unit of the time column (default s)")
+    _add_analysis_options(p)
+    p.add_argument("--jobs", type=int, default=min(os.cpu_count() or 1, 4), metavar="N",
+                   help="worker processes measuring steps (default: the CPU count, at most 4)")
+
+
+def _read_results(path: str, args: argparse.Namespace,
+                  settings: AnalysisSettings) -> tuple[list[StepResult], RecordingReader]:
+    """Every step of a recording, tagged with the recording's notes."""
+    reader = RecordingReader(path, ColumnMap(
         time=args.time, setpoint=args.setpoint, feedback=args.feedback,
         time_unit=args.time_unit))
     results = list(analyze_chunks(read_ahead(reader), settings,
                                   has_setpoint=reader.has_setpoint, workers=args.jobs))
+    if reader.notes:
+        from livestep.tags import NoteTimeline, tag_results
+        results = tag_results(results, NoteTimeline(reader.notes))
+    return results, reader
+
+
+def _analyze(args: argparse.Namespace) -> int:
+    profile = load_profile(args.profile) if args.profile else None
+    settings = _analysis_settings(args, profile)
+    results, reader = _read_results(args.file, args, settings)
     st = reader.stats
     notes = []
     if st.bad:
@@ -281,20 +307,78 @@ def _analyze(args: argparse.Namespace) -> int:
         notes.append(verdict_summary([v.verdict for v in verdicts], profile.name))
     for n in notes:
         print(f"livestep: {n}", file=sys.stderr)
+    from livestep.statistics import session_statistics
+    stats = session_statistics(results, profile)
+    band = settings.measure.settling_band
     if args.json:
-        from livestep.report import analysis_document, write_json
-        write_json(analysis_document(str(args.file), st.good, results, notes,
-                                     verdicts=verdicts, profile=profile), sys.stdout)
+        from livestep.report import add_guidance, analysis_document, statistics_records, write_json
+        doc = analysis_document(str(args.file), st.good, results, notes, verdicts=verdicts,
+                                profile=profile)
+        doc["statistics"] = statistics_records(stats)
+        if profile is not None:
+            add_guidance(doc, results, profile, band)
+        write_json(doc, sys.stdout)
     elif args.csv:
         from livestep.report import write_csv
         write_csv(results, sys.stdout, verdicts)
     else:
         from rich.console import Console
 
-        from livestep.report import render_table
-        render_table(results, Console(), title=f"{args.file}: {len(results)} steps,"
+        from livestep.report import render_guidance, render_statistics, render_table
+        console = Console()
+        render_table(results, console, title=f"{args.file}: {len(results)} steps,"
                      f" {st.good} samples", verdicts=verdicts)
+        if len(results) >= 2:
+            render_statistics(stats, console)
+        if profile is not None:
+            render_guidance(results, profile, band, console)
     return EXIT_OK if verdicts is None else gate_status(verdicts)
+
+
+def _tag(text: str) -> tuple[str, str]:
+    from livestep.tags import parse_note
+
+    pair = parse_note(text)
+    if pair is None or not pair[1]:
+        raise InputError(f"--tags: expected name=value, got {text!r}")
+    return pair
+
+
+def _compare(args: argparse.Namespace) -> int:
+    if len(args.files) > 2 or (len(args.files) == 1 and not args.tags):
+        raise InputError("compare: give two recordings, or one recording and --tags A B")
+    profile = load_profile(args.profile) if args.profile else None
+    settings = _analysis_settings(args, profile)
+    sides = []
+    loaded: dict[str, list[StepResult]] = {}
+    for k in range(2):
+        path = args.files[min(k, len(args.files) - 1)]
+        if path not in loaded:
+            loaded[path] = _read_results(path, args, settings)[0]
+        results, label = loaded[path], path
+        if args.tags:
+            tag = _tag(args.tags[k])
+            present = sorted({f"{n}={v}" for r in results for n, v in r.tags})
+            results = [r for r in results if tag in r.tags]
+            label = f"{path} [{args.tags[k]}]"
+            if not results:
+                raise InputError(f"{path}: no step carries the note {args.tags[k]!r} (notes"
+                                 f" present: {', '.join(present) or 'none'})")
+        if not results:
+            raise InputError(f"{path}: no steps found, nothing to compare")
+        sides.append((results, label))
+    from livestep.compare import compare
+
+    cmp = compare(sides[0][0], sides[1][0], sides[0][1], sides[1][1])
+    if args.json:
+        from livestep.report import comparison_document, write_json
+        write_json(comparison_document(cmp), sys.stdout)
+    else:
+        from rich.console import Console
+
+        from livestep.report import render_comparison
+        render_comparison(cmp, Console())
+    return EXIT_OK
 
 
 def verdict_summary(verdicts: Sequence[str], profile_name: str) -> str:
@@ -452,8 +536,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit status."""
     try:
         args = build_parser().parse_args(argv)
-        command = {"analyze": _analyze, "live": _live, "replay": _replay, "ports": _ports,
-                   "demo": _demo, "sim": _sim}
+        command = {"analyze": _analyze, "compare": _compare, "live": _live, "replay": _replay,
+                   "ports": _ports, "demo": _demo, "sim": _sim}
         return command[args.command](args)
     except InputError as exc:
         print(f"livestep: error: {exc}", file=sys.stderr)

@@ -2,8 +2,9 @@
 
 :class:`PlanRunner` is a driver of :func:`livestep.live.run_live`: the live loop calls
 :meth:`PlanRunner.poll` between reads. After ``lead_in`` seconds of data it sends each
-command through the link at its time, tags the session so the steps each command causes
-carry its plan entry, and when the plan is done, or on Ctrl-C, SIGTERM, an error or a lost
+command through the link at its time, adds the command's tags as notes to the session
+(stamped with the latest sample, so the steps the command causes carry them, and the
+recording keeps them), and when the plan is done, or on Ctrl-C, SIGTERM, an error or a lost
 link, sends the safe command once if the link is up.
 
 One command is sent at a time, and each gets its whole dwell from the moment it was sent
@@ -103,8 +104,9 @@ class PlanRunner:
             self._finished = True
             return True
         cmd = self.plan.commands[self._next]
-        if cmd.kind == "setpoint":
-            session.tag_after(session.last_t, cmd.tags)
+        if cmd.kind == "setpoint":  # the steps it causes carry the entry as tags
+            for name, value in cmd.tags:
+                session.add_note(name, value)
         if not self._send(cmd.text):
             return self._after_loss(now)
         self.out(f"plan: {cmd.entry}/{len(self.plan.commands)} sent {cmd.text!r}")
@@ -175,6 +177,9 @@ class PlanRunner:
         else:
             self.sent.append(self.plan.safe)
             self.out(f"plan: sent the safe command {self.plan.safe!r}")
+            if self._session is not None:  # steps after this one are not the plan's
+                for name in ("plan_entry", "setpoint", "repeat"):
+                    self._session.add_note(name, "")
         self.safe_sent = True
 
 

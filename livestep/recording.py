@@ -4,6 +4,12 @@ Format: optional ``# key: value`` metadata lines, then a header row naming the
 columns, then one sample per row. Default columns ``t`` (seconds),
 ``setpoint`` and ``feedback``; other columns are kept as extra channels.
 Files are read in blocks, so memory stays bounded whatever the file's length.
+
+Notes (:mod:`livestep.tags`) come from ``# note: <t> name=value`` lines (as the
+recorder writes them) and from a column named ``note``: a non-empty cell is a note
+at its row's time, ``name=value``, or else the text as the value of a note named
+``note`` (cells are split at commas; no CSV quoting). ``reader.notes`` holds them
+once the data are read.
 """
 
 from __future__ import annotations
@@ -22,12 +28,14 @@ import numpy as np
 from livestep.errors import InputError
 from livestep.numparse import is_number, parse_block
 from livestep.samples import SampleChunk
+from livestep.tags import Note, parse_note, parse_recorded_note
 
 __all__ = ["ColumnMap", "ReadStats", "RecordingReader", "TIME_UNITS", "read_ahead"]
 
 TIME_UNITS = {"s": 1.0, "ms": 1e-3, "us": 1e-6}
 _BLOCK_BYTES = 1 << 22
 _MAX_BAD_FRACTION = 0.1
+NOTE_COLUMN = "note"
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -98,6 +106,7 @@ class RecordingReader:
             raise InputError(f"unknown time unit {columns.time_unit!r}; use s, ms or us")
         self._scale = TIME_UNITS[columns.time_unit]
         self.metadata: dict[str, str] = {}
+        self.notes: list[Note] = []
         self.stats = ReadStats()
         self._fh = _open(self.path)
         try:
@@ -129,6 +138,10 @@ class RecordingReader:
             if not text:
                 continue
             if text.startswith("#"):
+                note = parse_recorded_note(text)
+                if note is not None:
+                    self.notes.append(note)
+                    continue
                 key, sep, value = text[1:].partition(":")
                 if sep:
                     self.metadata[key.strip()] = value.strip()
@@ -143,17 +156,26 @@ class RecordingReader:
             raise InputError("the first row is numbers, not a header naming the columns",
                              source=str(self.path), line=line_no)
         self.header = header
-        self._ti = _resolve(columns.time, header, "time")
-        self._fi = _resolve(columns.feedback, header, "feedback")
+        ti = _resolve(columns.time, header, "time")
+        fi = _resolve(columns.feedback, header, "feedback")
         if columns.setpoint is not None:
-            self._si: int | None = _resolve(columns.setpoint, header, "setpoint")
+            si: int | None = _resolve(columns.setpoint, header, "setpoint")
         else:
-            self._si = header.index("setpoint") if "setpoint" in header else None
-        roles = {self._ti, self._fi} | ({self._si} if self._si is not None else set())
-        if len(roles) < 2 + (self._si is not None):
+            si = header.index("setpoint") if "setpoint" in header else None
+        roles = {ti, fi} | ({si} if si is not None else set())
+        if len(roles) < 2 + (si is not None):
             raise InputError("time, setpoint and feedback must be different columns")
-        self.extra_names = [h for i, h in enumerate(header) if i not in roles]
-        self._extra_idx = [i for i in range(len(header)) if i not in roles]
+        # A note column is cut from each block before the numeric parse; indices below
+        # are into the numeric columns that are left.
+        self._ni = header.index(NOTE_COLUMN) if NOTE_COLUMN in header else None
+        if self._ni in roles:
+            raise InputError(f"the {NOTE_COLUMN!r} column holds text notes, not samples")
+        numeric = [i for i in range(len(header)) if i != self._ni]
+        self._ncol = len(numeric)
+        self._ti, self._fi = numeric.index(ti), numeric.index(fi)
+        self._si = numeric.index(si) if si is not None else None
+        self.extra_names = [header[i] for i in numeric if i not in roles]
+        self._extra_idx = [k for k, i in enumerate(numeric) if i not in roles]
         self._line = line_no  # last line consumed
         self._last_t = -math.inf
 
@@ -195,7 +217,7 @@ class RecordingReader:
             raise InputError("no valid data rows after the header", source=str(self.path))
 
     def _parse(self, block: bytes) -> SampleChunk | None:
-        ncol = len(self.header)
+        ncol = self._ncol
         first_line = self._line + 1
         nlines = block.count(b"\n")
         self._line += nlines
@@ -203,6 +225,9 @@ class RecordingReader:
         data = None
         if b"\r" in block:
             block = block.replace(b"\r", b"")
+        cells: list[tuple[int, str]] = []
+        if self._ni is not None:
+            block, cells = _cut_column(block, self._ni, len(self.header), first_line)
         data = parse_block(block, nlines, ncol)
         if data is not None:
             lines = np.arange(first_line, first_line + nlines)
@@ -225,9 +250,11 @@ class RecordingReader:
         fresh = t > prev
         if not fresh.all():
             self.stats.repeated_time += int((~fresh).sum())
-            data, t = data[fresh], t[fresh]
-            if t.size == 0:
-                return None
+            data, t, lines = data[fresh], t[fresh], lines[fresh]
+        if cells:
+            self._cell_notes(cells, t, lines)
+        if t.size == 0:
+            return None
         self._last_t = float(t[-1])
         self.stats.good += t.size
         return SampleChunk(
@@ -237,13 +264,16 @@ class RecordingReader:
                     for n, i in zip(self.extra_names, self._extra_idx, strict=True)})
 
     def _parse_slow(self, block: bytes, first_line: int) -> tuple[np.ndarray, np.ndarray]:
-        ncol = len(self.header)
+        ncol = self._ncol
         rows: list[list[float]] = []
         lines: list[int] = []
         for k, raw in enumerate(block.split(b"\n")[:-1]):
             ln = first_line + k
             if not raw.strip() or raw.lstrip().startswith(b"#"):
                 self.stats.rows -= 1
+                note = parse_recorded_note(raw.decode("utf-8", "replace").strip())
+                if note is not None:
+                    self.notes.append(note)
                 continue
             cells = raw.split(b",")
             if len(cells) != ncol:
@@ -258,6 +288,74 @@ class RecordingReader:
             rows.append(row)
             lines.append(ln)
         return (np.array(rows, dtype=float).reshape(-1, ncol), np.array(lines, dtype=np.intp))
+
+
+    def _cell_notes(self, cells: list[tuple[int, str]], t: np.ndarray,
+                    lines: np.ndarray) -> None:
+        """Notes of a note column, at their row's time (the last good row before, for a row
+        that was skipped; the first good one when none came before)."""
+        for line, text in cells:
+            k = int(np.searchsorted(lines, line, side="right")) - 1
+            if k >= 0:
+                at = float(t[k])
+            elif math.isfinite(self._last_t):
+                at = self._last_t
+            elif t.size:
+                at = float(t[0])
+            else:
+                continue
+            name, value = parse_note(text) or (NOTE_COLUMN, text)
+            self.notes.append(Note(at, name, value))
+
+
+def _cut_column(block: bytes, index: int, ncol: int,
+                first_line: int) -> tuple[bytes, list[tuple[int, str]]]:
+    """The block without column ``index`` of ``ncol`` (comment lines, and lines that do
+    not have the column, left as they are), and the non-empty cells cut, with their line
+    numbers. Vectorised when every line of the block has ``ncol`` cells."""
+    b = np.frombuffer(block, dtype=np.uint8)
+    ends = np.flatnonzero(b == ord("\n"))
+    commas = np.flatnonzero(b == ord(","))
+    if commas.size != ends.size * (ncol - 1) or b"#" in block:
+        return _cut_column_lines(block, index, first_line)
+    at = commas.reshape(ends.size, ncol - 1)
+    starts = np.concatenate(([0], ends[:-1] + 1))
+    if not (np.all(at[:, 0] >= starts) and np.all(at[:, -1] < ends)):
+        return _cut_column_lines(block, index, first_line)  # rows of different lengths
+    if index == 0:
+        lo, hi = starts, at[:, 0]
+        gone = (lo, hi + 1)  # the cell and the comma after it
+    elif index == ncol - 1:
+        lo, hi = at[:, -1] + 1, ends
+        gone = (lo - 1, hi)  # the comma before it and the cell
+    else:
+        lo, hi = at[:, index - 1] + 1, at[:, index]
+        gone = (lo, hi + 1)
+    cells = [(first_line + int(k), block[lo[k]:hi[k]].strip().decode("utf-8", "replace"))
+             for k in np.flatnonzero(hi > lo)]
+    edge = np.zeros(b.size + 1, dtype=np.int32)
+    edge[gone[0]] += 1  # one range per line: no index repeats within either array
+    edge[gone[1]] -= 1
+    keep = np.cumsum(edge[:-1]) == 0
+    return b[keep].tobytes(), [(ln, text) for ln, text in cells if text]
+
+
+def _cut_column_lines(block: bytes, index: int,
+                      first_line: int) -> tuple[bytes, list[tuple[int, str]]]:
+    """:func:`_cut_column` line by line, for blocks with comment or short lines."""
+    lines = block.split(b"\n")
+    cells: list[tuple[int, str]] = []
+    for k, line in enumerate(lines[:-1]):
+        if line.startswith(b"#"):
+            continue
+        parts = line.split(b",")
+        if len(parts) <= index:
+            continue
+        cell = parts.pop(index).strip()
+        if cell:
+            cells.append((first_line + k, cell.decode("utf-8", "replace")))
+        lines[k] = b",".join(parts)
+    return b"\n".join(lines), cells
 
 
 def read_all(path: str | Path, columns: ColumnMap = ColumnMap()) -> tuple[RecordingReader,

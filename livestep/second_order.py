@@ -19,6 +19,7 @@ __all__ = [
     "overshoot_pct",
     "peak_time",
     "phase_margin_deg",
+    "settling_constant",
     "settling_time_envelope",
     "settling_time_estimate",
     "step_and_impulse",
@@ -95,17 +96,21 @@ def peak_time(zeta: float, wn: float) -> float | None:
     return math.pi / (wn * math.sqrt(1.0 - zeta * zeta))
 
 
+def settling_constant(band_pct: float = 2.0) -> float:
+    """c in the rule of thumb Ts = c / (zeta wn): -ln(band), 3.0 for 5 % and 4.6 for 1 %;
+    for 2 % the rounded 4 that Ogata and Dorf & Bishop quote (-ln 0.02 = 3.9)."""
+    if math.isclose(band_pct, 2.0):
+        return 4.0
+    return -math.log(band_pct / 100.0)
+
+
 def settling_time_estimate(zeta: float, wn: float, band_pct: float = 2.0) -> float:
     """Rule-of-thumb settling time, seconds: 4/(zeta wn) for a 2 % band.
 
-    Generalised as -ln(band) / (zeta wn), which gives 3.9/(zeta wn) for 2 %,
-    3.0 for 5 % and 4.6 for 1 %; the 2 % case is quoted as 4/(zeta wn) by
-    Ogata and Dorf & Bishop, and that rounded constant is what we return for
-    2 %. Valid for underdamped responses only (it follows the decay envelope).
+    Generalised as -ln(band) / (zeta wn) (:func:`settling_constant`). Valid for
+    underdamped responses only (it follows the decay envelope).
     """
-    if math.isclose(band_pct, 2.0):
-        return 4.0 / (zeta * wn)
-    return -math.log(band_pct / 100.0) / (zeta * wn)
+    return settling_constant(band_pct) / (zeta * wn)
 
 
 def settling_time_envelope(zeta: float, wn: float, band_pct: float = 2.0) -> float:

@@ -2,13 +2,14 @@
 
 Live data and replay take exactly this path, so a replayed recording gives the
 same steps as the session that made it. A device restart (a new segment) closes
-the open step: steps never span a restart.
+the open step: steps never span a restart. Notes (``name=value`` lines of a text
+stream, or :meth:`Session.add_note` from a user interface) go to the sinks and
+tag every step that starts while they are active. Binary frames carry no notes.
 """
 
 from __future__ import annotations
 
 import gzip
-import math
 import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import replace
@@ -21,6 +22,7 @@ from livestep.decode.text import TextDecoder, TextFormat
 from livestep.decode.timebase import ClockSettings
 from livestep.samples import SampleChunk
 from livestep.sinks.base import Sink
+from livestep.tags import Note, NoteTimeline
 
 __all__ = ["AutoDecoder", "Decoder", "Session", "Sink", "make_decoder", "replay_file"]
 
@@ -33,6 +35,11 @@ class Decoder(Protocol):
     def feed(self, data: bytes) -> list[SampleChunk]: ...
 
     def flush(self) -> list[SampleChunk]: ...
+
+
+def _take_notes(decoder: object) -> list[Note]:
+    take = getattr(decoder, "take_notes", None)
+    return take() if take is not None else []
 
 
 class AutoDecoder:
@@ -66,6 +73,10 @@ class AutoDecoder:
             out = self._choose().feed(self._take())
             return out + self._inner.flush()  # type: ignore[union-attr]
         return self._inner.flush()
+
+    def take_notes(self) -> list[Note]:
+        """The inner decoder's new notes (text streams only)."""
+        return _take_notes(self._inner)
 
     def _take(self) -> bytes:
         buf, self._buf = self._buf, b""
@@ -116,14 +127,8 @@ class Session:
         self._analyzer: StepAnalyzer | None = None
         self._segment = 0
         self._closed = False
-        self._marks: list[tuple[float, tuple[tuple[str, str], ...]]] = []
-
-    def tag_after(self, t: float | None, tags: tuple[tuple[str, str], ...]) -> None:
-        """Attach ``tags`` to every step whose instant is later than device time ``t``
-        (seconds, the session's time base; ``None``: from the first sample on), until the
-        next call. A plan runner calls it with :attr:`last_t` just before it sends a
-        command, so the steps that command causes carry the plan entry."""
-        self._marks.append((-math.inf if t is None else t, tuple(tags)))
+        self.notes = NoteTimeline()
+        self._unsent: list[Note] = []  # notes not yet handed to the sinks
 
     @property
     def counters(self) -> LinkCounters:
@@ -134,6 +139,17 @@ class Session:
         for s in self.sinks:
             s.on_bytes(data)
         return self._chunks(self.decoder.feed(data))
+
+    def add_note(self, name: str, value: str, t: float | None = None) -> Note:
+        """Add a note from outside the stream (a user interface): ``name`` is ``value``
+        from ``t`` (seconds, the stream's time base; ``None``: the time of the latest
+        sample, 0 before any). An empty ``value`` ends the note. Call it from the thread
+        that feeds the session."""
+        note = Note(float(t if t is not None else self.last_t or 0.0), name, value)
+        self.notes.add(note)
+        for s in self.sinks:
+            s.on_note(note)
+        return note
 
     def state(self, state: str) -> None:
         for s in self.sinks:
@@ -150,6 +166,7 @@ class Session:
         self._closed = True
         out = self._chunks(self.decoder.flush())
         out += self._finish()
+        self._send_notes(None)
         for s in self.sinks:
             s.close(self.counters)
         return out
@@ -161,9 +178,26 @@ class Session:
         self._analyzer = None
         return self._publish(done)
 
+    def _send_notes(self, until: float | None) -> None:
+        """Hand the sinks the notes stamped at or before ``until`` (all, for ``None``), so
+        a recorder writes each one right after the sample it was stamped with."""
+        k = 0
+        while k < len(self._unsent) and (until is None or self._unsent[k].t <= until):
+            k += 1
+        send, self._unsent = self._unsent[:k], self._unsent[k:]
+        for note in send:
+            for s in self.sinks:
+                s.on_note(note)
+
     def _chunks(self, chunks: Iterable[SampleChunk]) -> list[StepResult]:
         out: list[StepResult] = []
+        new = _take_notes(self.decoder)  # stamped already: in the timeline before any step
+        for note in new:
+            self.notes.add(note)
+        self._unsent += new
         for chunk in chunks:
+            if self._unsent:  # stamped with the previous chunk's last sample (or this first)
+                self._send_notes(float(chunk.t[0]))
             if chunk.segment != self._segment:
                 out += self._finish("device restart")
                 self._segment = chunk.segment
@@ -176,23 +210,20 @@ class Session:
                 self.first_t = float(chunk.t[0])
             self.last_t = float(chunk.t[-1])
             out += self._publish(self._analyzer.feed(chunk))
+        if self._unsent and self.last_t is not None:
+            self._send_notes(self.last_t)
         return out
 
     def _publish(self, results: list[StepResult]) -> list[StepResult]:
         """Number the steps across segments (each has its own detector) and hand them on."""
-        out = [replace(r, index=len(self.results) + k, tags=r.tags + self._tags_at(r))
+        out = [replace(r, index=len(self.results) + k,
+                       tags=self.notes.active_at(r.metrics.t_step))
                for k, r in enumerate(results)]
         self.results += out
         for r in out:
             for s in self.sinks:
                 s.on_step(r)
         return out
-
-    def _tags_at(self, r: StepResult) -> tuple[tuple[str, str], ...]:
-        for t, tags in reversed(self._marks):
-            if t < r.metrics.t_step:
-                return tags
-        return ()
 
 
 def replay_file(path: Path, session: Session, *, speed: float | None = 1.0,

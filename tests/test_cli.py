@@ -211,3 +211,41 @@ def test_shipped_profile_judges_the_shipped_example(capsys):
                              "--json", "--profile", str(ROOT / "fixtures" / "belt-axis-spec.toml"))
     verdicts = [s["verdict"] for s in json.loads(out)["steps"]]
     assert status == 1 and verdicts[:2] == ["fail", "fail"] and "pass" in verdicts
+
+
+def test_statistics_and_guidance_in_json(capsys, recording, write_file):
+    # The recording's three steps share zeta = 0.4; the overshoot limit 10 % needs zeta >=
+    # -ln 0.1 / sqrt(pi^2 + ln^2 0.1) = 0.591 (Ogata; Nise), which every step misses.
+    spec = write_file("spec.toml", "[limits]\novershoot_pct = { max = 10 }\n")
+    status, out, _ = run_cli(capsys, "analyze", str(recording), "--json", "--profile",
+                             str(spec))
+    doc = json.loads(out)
+    every = doc["statistics"][0]
+    assert (every["by"], every["key"], every["steps"]) == ("all", "all", [0, 1, 2])
+    os_stats = every["metrics"]["overshoot_pct"]
+    values = [s["overshoot_pct"] for s in doc["steps"]]
+    assert os_stats["count"] == 3 and os_stats["mean"] == pytest.approx(np.mean(values))
+    assert os_stats["std"] == pytest.approx(np.std(values, ddof=1))
+    # Cpu = (USL - mean) / (3 s): negative, the mean is above the limit.
+    assert os_stats["cpk"] == pytest.approx((10 - np.mean(values)) / (3 * os_stats["std"]))
+    assert {(g["by"], g["key"]) for g in doc["statistics"]} >= {("direction", "up"),
+                                                                ("direction", "down")}
+    zeta_min = -math.log(0.1) / math.sqrt(math.pi**2 + math.log(0.1) ** 2)
+    assert doc["design"]["zeta_min"] == pytest.approx(zeta_min)
+    assert "not a tuning rule" in doc["design"]["assumes"]
+    for s in doc["steps"]:
+        (sentence,) = s["guidance"]
+        assert sentence.startswith(f"damping ratio {s['model']['zeta']:.2f}, needs >= 0.59")
+    # Without a profile: statistics, but no Cpk and no guidance.
+    status, out, _ = run_cli(capsys, "analyze", str(recording), "--json")
+    doc = json.loads(out)
+    assert doc["statistics"][0]["metrics"]["overshoot_pct"]["cpk"] is None
+    assert "design" not in doc and "guidance" not in doc["steps"][0]
+
+
+def test_statistics_and_guidance_in_the_table(capsys):
+    status, out, _ = run_cli(capsys, "analyze", str(ROOT / "fixtures" / "belt-axis.csv"),
+                             "--profile", str(ROOT / "fixtures" / "belt-axis-spec.toml"))
+    assert "statistics over 8 steps" in out and "mean per group" in out
+    assert "tag gains=A" in out  # the demo's notes
+    assert "step 0: damping ratio 0.35, needs >= 0.59" in out

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import json
-import re
 
 from livestep.cli import main
 from livestep.demo import demo_plan
@@ -18,7 +17,9 @@ def test_demo_measures_every_planned_step_and_records_them(tmp_path, capsys):
     lines = [ln for ln in out.splitlines() if ln.startswith("step ")]
     assert len(lines) == n_steps, out + err
     # each printed step names its plan entry and gain set
-    assert re.search(r"\[plan_entry=2 setpoint=5 repeat=1 gains=soft\]", lines[0]), lines[0]
+    # (tags sorted by name: the plan's entry, and the gains the bench echoes as notes)
+    assert "[gains=soft, kd=0.1, ki=60, kp=20, plan_entry=2, repeat=1, setpoint=5]" \
+        in lines[0], lines[0]
     assert "gains=firm" in lines[-1]
     assert "plan: sent the safe command 'sp 0'" in err
     # the recording reads back offline with the same steps; the device clock wrapped after
@@ -26,6 +27,9 @@ def test_demo_measures_every_planned_step_and_records_them(tmp_path, capsys):
     result = main(["analyze", str(rec), "--json"])
     doc = json.loads(capsys.readouterr().out)
     assert result == 0 and len(doc["steps"]) == n_steps
+    # ... and the same tags, from the recording's notes
+    assert [s["tags"]["plan_entry"] for s in doc["steps"]] == ["2", "3", "5", "6", "8", "9"]
+    assert doc["steps"][-1]["tags"]["kd"] == "0.3"
     t = [s["t_step"] for s in doc["steps"]]
     assert all(0.4 < b - a < 0.9 for a, b in zip(t, t[1:], strict=False)), t
     assert t[-1] > 3.0

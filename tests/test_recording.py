@@ -6,6 +6,8 @@ import gzip
 
 import numpy as np
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from livestep.errors import InputError
 from livestep.recording import ColumnMap, RecordingReader, read_all
@@ -114,3 +116,57 @@ def test_rows_of_wrong_length_are_skipped_not_shifted(write_file):
     assert reader.stats.bad == 2 and reader.stats.first_bad_line == 12
     fb = np.concatenate([c.feedback for c in chunks])
     assert np.array_equal(fb, [k for k in range(40) if k not in (10, 11)])
+
+
+def test_notes_from_comment_lines_and_a_note_column(write_file):
+    rows = [f"{k * 0.001:.3f},{1.0 if k >= 5 else 0.0},{0.1 * k:.1f},{k}," for k in range(10)]
+    rows[0] += "gains=A"
+    rows[3] += "operator swapped the belt"
+    rows[6] = "0.005,bad,0.6,6,gains=B"  # a skipped row keeps its note (at the row before)
+    text = ("# note: 0.0005 load=empty\nt,setpoint,feedback,current,note\n" + rows[0] + "\n"
+            + "\n".join(rows[1:5]) + "\n# note: 0.0045 load=full\n" + "\n".join(rows[5:]) + "\n")
+    reader, chunks = read_all(write_file("n.csv", text))
+    assert reader.extra_names == ["current"] and reader.stats.bad == 1
+    assert np.array_equal(np.concatenate([c.extras["current"] for c in chunks]),
+                          [0, 1, 2, 3, 4, 5, 7, 8, 9])
+    got = sorted((n.t, n.name, n.value) for n in reader.notes)
+    assert got == [(0.0, "gains", "A"), (0.0005, "load", "empty"),
+                   (0.003, "note", "operator swapped the belt"), (0.0045, "load", "full"),
+                   (0.005, "gains", "B")]
+
+
+def test_note_column_cannot_be_a_role(write_file):
+    with pytest.raises(InputError, match="text notes"):
+        RecordingReader(write_file("n.csv", "t,note\n0,1\n"), ColumnMap(feedback="note"))
+
+
+@pytest.mark.parametrize("position", [0, 1, 3])
+def test_note_column_anywhere(write_file, position):
+    names = ["t", "setpoint", "feedback"]
+    names.insert(position, "note")
+    lines = []
+    for k in range(2000):
+        cells = [f"{k * 0.001:.3f}", "1.0" if k >= 1000 else "0.0", f"{0.01 * k:.2f}"]
+        cells.insert(position, {10: "gains=A", 1500: " gains = B "}.get(k, ""))
+        lines.append(",".join(cells))
+    reader, chunks = read_all(write_file("n.csv", ",".join(names) + "\n" + "\n".join(lines)
+                                         + "\n"))
+    assert reader.stats.bad == 0 and reader.extra_names == []
+    assert np.allclose(np.concatenate([c.feedback for c in chunks]), np.arange(2000) * 0.01)
+    assert [(n.t, n.name, n.value) for n in reader.notes] == [(0.01, "gains", "A"),
+                                                               (1.5, "gains", "B")]
+
+
+@given(st.lists(st.tuples(st.sampled_from(["", "gains=A", "x", " kp=2 "]),
+                          st.booleans()), min_size=1, max_size=30),
+       st.integers(0, 3))
+def test_vectorised_note_cut_agrees_with_the_line_by_line_one(rows, index):
+    from livestep.recording import _cut_column, _cut_column_lines
+
+    lines = []
+    for k, (note, short) in enumerate(rows):
+        cells = [str(k), "1.5", "-2"]
+        cells.insert(index, note)
+        lines.append(",".join(cells[:-1] if short and index != 3 else cells))
+    block = ("\n".join(lines) + "\n").encode()
+    assert _cut_column(block, index, 4, 7) == _cut_column_lines(block, index, 7)

@@ -2,10 +2,12 @@
 
 from __future__ import annotations
 
+import io
 import sys
 from pathlib import Path
 
 import pytest
+from rich.console import Console
 
 from livestep.cli import main
 from livestep.decode.counters import LinkCounters
@@ -13,6 +15,7 @@ from livestep.decode.text import TextDecoder, TextFormat
 from livestep.decode.timebase import ClockSettings
 from livestep.session import AutoDecoder, Session, make_decoder, replay_file
 from livestep.sinks.base import Sink
+from livestep.sinks.console import ConsoleSink
 from livestep.sinks.recorder import Recorder
 
 sys.path.insert(0, str(Path(__file__).parent))
@@ -101,3 +104,56 @@ def test_auto_decoder_picks_text_for_lines():
 def test_ports_command_runs(capsys):
     assert main(["ports"]) == 0
     assert capsys.readouterr().out.strip()
+
+
+def with_notes(data: bytes, notes: dict[int, str]) -> bytes:
+    """``data`` with note lines inserted before the given (0-based) sample lines."""
+    lines = data.splitlines(keepends=True)
+    out, k = [], -1
+    for line in lines:
+        if line[:1].isdigit():
+            k += 1
+            if k in notes:
+                out.append(notes[k].encode() + b"\n")
+        out.append(line)
+    return b"".join(out)
+
+
+def test_notes_tag_steps_live_in_the_recording_and_on_replay(tmp_path, capsys):
+    # Steps at samples 1600, 3200, 4800 (0.8 s holds at 2 kHz); gains change between them.
+    data = with_notes(device_lines([0.0, 1.0, 3.0, 2.0]),
+                      {0: "gains=A", 2000: "gains=B", 4000: "load=full"})
+    rec = Recorder(tmp_path / "n.csv", metadata={"source": "test"})
+    shown = io.StringIO()
+    live = Session(TextDecoder(clock=US), sinks=[rec, ConsoleSink(Console(file=shown))])
+    feed_all(live, data, piece=555)
+    assert [r.tags for r in live.results] == [
+        (("gains", "A"),), (("gains", "B"),), (("gains", "B"), ("load", "full"))]
+    assert "note at 0.999 s: gains=B" in shown.getvalue()
+    assert "[gains=B, load=full]" in shown.getvalue()
+    text = rec.path.read_text()
+    assert "# note: 0 gains=A\n" in text and "# note: 0.9995 gains=B\n" in text
+
+    again = Session(make_decoder("auto"))
+    replay_file(rec.path, again, speed=None)
+    again.close()
+    assert [r.tags for r in again.results] == [r.tags for r in live.results]
+
+    assert main(["analyze", str(rec.path), "--json", "--jobs", "1"]) == 0
+    import json
+    doc = json.loads(capsys.readouterr().out)
+    assert [s["tags"] for s in doc["steps"]] == [
+        {"gains": "A"}, {"gains": "B"}, {"gains": "B", "load": "full"}]
+
+
+def test_add_note_from_outside_the_stream(tmp_path):
+    rec = Recorder(tmp_path / "u.csv", metadata={})
+    session = Session(TextDecoder(clock=US), sinks=[rec])
+    data = device_lines([0.0, 1.0, 2.0])
+    session.feed(data[:len(data) // 2])  # into the second hold (step at 0.8 s)
+    note = session.add_note("gains", "C")
+    assert note.t == session.last_t
+    session.feed(data[len(data) // 2:])
+    session.close()
+    assert [r.tags for r in session.results] == [(), (("gains", "C"),)]
+    assert f"# note: {note.t:.12g} gains=C\n" in rec.path.read_text()

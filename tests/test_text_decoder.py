@@ -171,3 +171,28 @@ def test_memory_is_bounded_without_newlines():
         dec.feed(b"x" * 1000)
     assert len(dec._carry) <= dec.fmt.max_line
     assert dec.counters.bad["overlong line"] >= 1
+
+
+def test_note_lines_are_stamped_with_the_sample_before_them():
+    rows = [f"{k * 0.001:.3f},{1.0 if k >= 30 else 0.0},{k * 0.01:.2f}\n" for k in range(N)]
+    text = ("gains=A\nt,setpoint,feedback\n" + "".join(rows[:20]) + "kp = 2.5\n"
+            + "".join(rows[20:40]) + "boot: ok\n# note: 9.5 gains=B\n" + "".join(rows[40:50])
+            + "kp=1.2 ki=30\n" + "".join(rows[50:]))
+    for sizes in (None, [7] * 300):
+        dec, chunks = decode(text.encode(), sizes=sizes)
+        assert sum(len(c) for c in chunks) == N
+        notes = dec.take_notes()
+        # Before any sample: the first sample's time; a recorded note's own time is
+        # replaced by the stream's (here the same time base, the sample before it).
+        assert [(n.t, n.name, n.value) for n in notes] == [
+            (0.0, "gains", "A"), (0.019, "kp", "2.5"), (0.039, "gains", "B"),
+            (0.049, "kp", "1.2"), (0.049, "ki", "30")]
+        assert dec.counters.notes == 5 and dec.counters.log_lines == 1
+        assert dec.take_notes() == []
+
+
+def test_a_lone_pair_of_a_pairs_stream_is_a_note_unless_it_names_a_column():
+    lines = [f"t={k * 0.001:.3f} setpoint=0 feedback={k * 0.01:.2f}\n" for k in range(N)]
+    text = "".join(lines[:30]) + "kp=3\nfeedback=1.5\n" + "".join(lines[30:])
+    dec, _ = decode(text.encode())
+    assert [(n.t, n.name, n.value) for n in dec.take_notes()] == [(0.029, "kp", "3")]

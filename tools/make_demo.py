@@ -24,6 +24,8 @@ from livestep.second_order import step_response  # noqa: E402
 #: (setpoint mm, damping ratio) of each step of the default session
 DEMO_STEPS = [(50.0, 0.35), (80.0, 0.35), (30.0, 0.5), (60.0, 0.5), (40.0, 0.7),
               (90.0, 0.7), (20.0, 0.9), (55.0, 1.3)]
+#: The name of the gain set giving each damping ratio (a note before its first step)
+GAIN_SETS = {0.35: "A", 0.5: "B", 0.7: "C", 0.9: "D", 1.3: "E"}
 
 
 def synthesize(levels: list[float], zetas: list[float], *, rate: float = 2000.0,
@@ -51,16 +53,25 @@ def synthesize(levels: list[float], zetas: list[float], *, rate: float = 2000.0,
 
 
 def write_csv(path: Path, t: np.ndarray, sp: np.ndarray, fb: np.ndarray,
-              meta: dict[str, str]) -> None:
+              meta: dict[str, str], notes: dict[int, str] | None = None) -> None:
+    """``notes``: note text by sample index, written as a ``# note: <t> name=value`` line
+    after that sample (the recording format)."""
     opener = gzip.open if path.suffix == ".gz" else open
+    cuts = sorted(notes or {})
     with opener(path, "wt", newline="") as fh:
         for k, v in meta.items():
             fh.write(f"# {k}: {v}\n")
         fh.write("t,setpoint,feedback\n")
         block = 200_000
-        for i in range(0, t.size, block):
-            rows = np.column_stack((t[i:i + block], sp[i:i + block], fb[i:i + block]))
-            np.savetxt(fh, rows, fmt=("%.6f", "%.3f", "%.3f"), delimiter=",")
+        start = 0
+        for end in [*(c + 1 for c in cuts), t.size]:
+            for i in range(start, end, block):
+                j = min(i + block, end)
+                rows = np.column_stack((t[i:j], sp[i:j], fb[i:j]))
+                np.savetxt(fh, rows, fmt=("%.6f", "%.3f", "%.3f"), delimiter=",")
+            if notes and end - 1 in notes:
+                fh.write(f"# note: {t[end - 1]:.6f} {notes[end - 1]}\n")
+            start = end
 
 
 def main() -> None:
@@ -71,7 +82,12 @@ def main() -> None:
     levels = [lv for lv, _ in DEMO_STEPS]
     zetas = [z for _, z in DEMO_STEPS]
     t, sp, fb = synthesize(levels, zetas, seed=args.seed)
-    write_csv(Path(args.out), t, sp, fb, {
+    n_per = t.size // (len(levels) + 1)
+    notes = {}  # a gain set is chosen just before its first step
+    for j, zeta in enumerate(zetas):
+        if j == 0 or zeta != zetas[j - 1]:
+            notes[(j + 1) * n_per - 1] = f"gains={GAIN_SETS[zeta]}"
+    write_csv(Path(args.out), t, sp, fb, notes=notes, meta={
         "source": "invented demo: carton line transfer axis, belt drive, position loop",
         "units": "t s, setpoint mm, feedback mm", "generator": "tools/make_demo.py"})
 

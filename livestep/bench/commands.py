@@ -10,8 +10,10 @@
 Keywords are case-insensitive, fields are separated by spaces or tabs, a line ends in
 ``\\n`` (a ``\\r`` before it is ignored) and holds at most :data:`MAX_LINE` characters.
 The bench answers every line with one note in its stream (a ``# `` text line, or a log
-frame): ``sp=VALUE``, ``gains kp=.. ki=.. kd=..``, ``stream on``/``stream off``, the
-status, or ``error: ...`` for a line it refused (and then changes nothing).
+frame): ``sp=VALUE``, ``stream on``/``stream off``, the status, or ``error: ...`` for a
+line it refused (and then changes nothing). A gain change is answered, in text mode, by
+the bare note line ``kp=.. ki=.. kd=..`` (a log frame ``gains kp=.. ki=.. kd=..`` in binary
+mode), so the steps that follow carry the gains as tags.
 """
 
 from __future__ import annotations

@@ -164,10 +164,10 @@ class VirtualBench:
     def _run(self) -> None:
         s = self.settings
         self._send_text(s.banner, note=False)
-        if self.plant.gains is not None:
-            self.note(self.plant.gains.describe())
         if s.fmt == "text":
             self._out.append(b"t,setpoint,feedback\n")
+        if self.plant.gains is not None:
+            self.note(self.plant.gains.describe(), tags=True)
         start = time.monotonic()
         per_block = max(1, int(round(s.block * s.rate)))
         while not self._stop.is_set():
@@ -201,10 +201,15 @@ class VirtualBench:
         return b"".join(b"%d,%s,%.8g\n" % (t, sp, v) for t, v in zip(ts.tolist(), y.tolist(),
                                                                      strict=True))
 
-    def note(self, text: str) -> None:
-        """Put a note into the stream, before the next samples (controller thread)."""
+    def note(self, text: str, *, tags: bool = False) -> None:
+        """Put a note into the stream, before the next samples (controller thread): a
+        ``# text`` line, or with ``tags`` (text ``word name=value ...``) the bare line
+        ``name=value ...`` that livestep takes for notes; a log frame in binary mode."""
         self.notes.append(text)
-        self._send_text(text, note=True)
+        if tags and self.settings.fmt == "text":
+            self._out.append(text.partition(" ")[2].encode() + b"\n")
+        else:
+            self._send_text(text, note=True)
 
     def _send_text(self, text: str, *, note: bool) -> None:
         if self.settings.fmt == "binary":
@@ -232,7 +237,7 @@ class VirtualBench:
                         gains = self.plant.set_gains(**dict(cmd.gains))
                     except ValueError as exc:
                         raise CommandError(str(exc)) from None
-                    self.note(gains.describe())
+                    self.note(gains.describe(), tags=True)
                 elif cmd.kind == "stream":
                     self.streaming = bool(cmd.on)
                     self.note("stream on" if cmd.on else "stream off")

@@ -14,7 +14,8 @@ class LinkCounters:
     """Running counts for one link: bytes received, good samples, bad lines or frames by
     reason, gaps (sequence gaps, or time gaps over 1.5 x the median period), frames
     known lost from their sequence numbers, decoder
-    resynchronisations, reconnects, firmware log lines and device restarts (segments)."""
+    resynchronisations, reconnects, firmware log lines, notes (``name=value`` lines) and device
+    restarts (segments)."""
 
     bytes: int = 0
     samples: int = 0
@@ -24,6 +25,7 @@ class LinkCounters:
     resyncs: int = 0
     reconnects: int = 0
     log_lines: int = 0
+    notes: int = 0
     restarts: int = 0
 
     def snapshot(self) -> dict[str, Any]:
@@ -31,4 +33,4 @@ class LinkCounters:
         return {"bytes": self.bytes, "samples": self.samples, "bad": dict(self.bad),
                 "bad_total": sum(self.bad.values()), "gaps": self.gaps, "lost": self.lost,
                 "resyncs": self.resyncs, "reconnects": self.reconnects,
-                "log_lines": self.log_lines, "restarts": self.restarts}
+                "log_lines": self.log_lines, "notes": self.notes, "restarts": self.restarts}

@@ -8,6 +8,13 @@ field counts, ``nan`` and firmware log lines are skipped, counted by kind in
 :class:`~livestep.decode.counters.LinkCounters`, and log lines are kept (the
 last ``max_logs``) for display. Decisions depend only on the bytes, never on
 how they were split into reads.
+
+A line that is one ``name=value`` pair, or several without spaces (``gains=B``,
+``kp = 2.5``, ``kp=1.2 ki=30``), is a note (:mod:`livestep.tags`) in a delimited
+stream, and in a ``name=value`` stream when none of its names is a column (else it
+is a damaged data line); so is a recording's ``# note: <t> name=value`` line
+on replay: it is stamped with the time of the last sample before it (of the first
+sample, when none came before) and collected in :meth:`TextDecoder.take_notes`.
 """
 
 from __future__ import annotations
@@ -24,6 +31,7 @@ from livestep.decode.timebase import ClockSettings, Timebase
 from livestep.errors import InputError
 from livestep.numparse import is_number, parse_block
 from livestep.samples import SampleChunk
+from livestep.tags import NOTE_PREFIX, Note, parse_notes
 
 __all__ = ["TextDecoder", "TextFormat"]
 
@@ -77,6 +85,9 @@ class TextDecoder:
         self._extra: list[tuple[str, int]] = []
         self._header_line: bytes | None = None
         self.columns: list[str] = []
+        self._notes: list[Note] = []
+        self._unstamped: list[tuple[str, str]] = []  # notes seen before the first sample
+        self._last_t: float | None = None
 
     # -- public -------------------------------------------------------------------
     @property
@@ -101,6 +112,11 @@ class TextDecoder:
             self._carry = b""
             self._skipping = True
         return self._lines(buf[:cut]) if cut else []
+
+    def take_notes(self) -> list[Note]:
+        """The notes stamped since the last call, in stream order."""
+        notes, self._notes = self._notes, []
+        return notes
 
     def flush(self) -> list[SampleChunk]:
         """End of stream: decode a last line without a newline."""
@@ -258,6 +274,13 @@ class TextDecoder:
                 rows = []
                 self.timebase.new_segment()
                 continue
+            note = self._note(line)
+            if note is not None:
+                out += self._emit(np.array(rows, dtype=float).reshape(-1, ncol))
+                rows = []
+                for name, value in note:
+                    self._stamp_note(name, value)
+                continue
             row = self._parse_line(line, ncol)
             if row is not None:
                 rows.append(row)
@@ -299,6 +322,30 @@ class TextDecoder:
             return None
         return row
 
+    def _note(self, line: bytes) -> list[tuple[str, str]] | None:
+        """The ``(name, value)`` pairs when the line is a note (see the module docstring)."""
+        if b"=" not in line:
+            return None
+        try:
+            text = line.decode("utf-8").strip()
+        except UnicodeDecodeError:
+            return None
+        if text.startswith(NOTE_PREFIX):  # a recording replayed: the time is re-stamped
+            text = text[len(NOTE_PREFIX):].strip().partition(" ")[2]
+        elif text.startswith("#"):
+            return None
+        pairs = parse_notes(text)
+        if pairs is None or (self._pairs and any(name in self.columns for name, _ in pairs)):
+            return None  # a damaged data line of a name=value stream is not a note
+        return pairs
+
+    def _stamp_note(self, name: str, value: str) -> None:
+        self.counters.notes += 1
+        if self._last_t is None:
+            self._unstamped.append((name, value))
+        else:
+            self._notes.append(Note(self._last_t, name, value))
+
     def _role_indices(self) -> list[int]:
         assert self._roles is not None
         return [i for i in self._roles if i is not None]
@@ -330,6 +377,12 @@ class TextDecoder:
             return []
         stamped = self.timebase.stamp(data[:, ti] if ti is not None else None, data.shape[0])
         data = data[stamped.keep]
+        if stamped.t.size:
+            if self._unstamped:
+                first = float(stamped.t[0])
+                self._notes += [Note(first, n, v) for n, v in self._unstamped]
+                self._unstamped = []
+            self._last_t = float(stamped.t[-1])
         self.counters.samples += data.shape[0]
         bounds = [0, *stamped.segment_starts, data.shape[0]]
         first_segment = self.timebase.segment - len(stamped.segment_starts)

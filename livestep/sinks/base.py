@@ -5,6 +5,7 @@ from __future__ import annotations
 from livestep.analysis import StepResult
 from livestep.decode.counters import LinkCounters
 from livestep.samples import SampleChunk
+from livestep.tags import Note
 
 __all__ = ["Sink"]
 
@@ -20,6 +21,9 @@ class Sink:
 
     def on_step(self, result: StepResult) -> None:
         """A step whose window has closed, measured and modelled."""
+
+    def on_note(self, note: Note) -> None:
+        """A note (``name=value`` at a time) from the stream or the user."""
 
     def on_state(self, state: str) -> None:
         """Link state: connected, disconnected, ..."""

@@ -10,6 +10,7 @@ from rich.table import Table
 from livestep.analysis import StepResult
 from livestep.decode.counters import LinkCounters
 from livestep.sinks.base import Sink
+from livestep.tags import Note
 
 __all__ = ["ConsoleSink", "JsonLinesSink", "counters_table", "step_line"]
 
@@ -23,7 +24,7 @@ def step_line(r: StepResult) -> str:
     m, f = r.metrics, r.model
     settle = _ms(m.settling_time) if m.settled else "not settled"
     model = f", zeta {f.zeta:.3f}, wn {f.wn:.4g} rad/s" if f is not None else ""
-    tags = f" [{' '.join(f'{k}={v}' for k, v in r.tags)}]" if r.tags else ""
+    tags = f" [{', '.join(f'{k}={v}' for k, v in r.tags)}]" if r.tags else ""
     return (f"step {r.index} at {m.t_step:.3f} s: {m.direction} {m.amplitude:+.4g},"
             f" rise {_ms(m.rise_time)}, overshoot {m.overshoot_pct:.1f} %,"
             f" settling {settle}{model}{tags}")
@@ -36,7 +37,7 @@ def counters_table(c: LinkCounters) -> Table:
     table.add_column("counter")
     table.add_column("value", justify="right")
     for key in ("bytes", "samples", "bad_total", "gaps", "lost", "resyncs", "reconnects",
-                "log_lines", "restarts"):
+                "log_lines", "notes", "restarts"):
         table.add_row(key.replace("_", " "), str(snap[key]))
     for reason, n in sorted(snap["bad"].items()):
         table.add_row(f"  bad: {reason}", str(n))
@@ -53,6 +54,10 @@ class ConsoleSink(Sink):
         self.console.print(step_line(result), highlight=False, markup=False, soft_wrap=True)
         for w in result.warnings:
             self.console.print(f"  [yellow]{w}[/]")
+
+    def on_note(self, note: Note) -> None:
+        self.console.print(f"note at {note.t:.3f} s: {note.name}={note.value}", markup=False,
+                           highlight=False)
 
     def on_state(self, state: str) -> None:
         self.console.print(f"[bold]link {state}[/]")

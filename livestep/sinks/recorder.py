@@ -4,7 +4,8 @@ Both files are flushed to the operating system every half second (and at
 every state change and on close), so a session killed outright loses at most
 its last second and leaves a file that ``livestep analyze`` reads. A device
 restart is marked by a ``# segment: N`` line, which the text decoder honours
-on replay.
+on replay. A note is a ``# note: <t> name=value`` line right after the sample it
+was stamped with (a note before the first sample: right after the header).
 """
 
 from __future__ import annotations
@@ -23,6 +24,7 @@ from livestep import __version__
 from livestep.decode.counters import LinkCounters
 from livestep.samples import SampleChunk
 from livestep.sinks.base import Sink
+from livestep.tags import Note, format_note
 
 __all__ = ["Recorder", "unique_path"]
 
@@ -59,6 +61,7 @@ class Recorder(Sink):
         self._fmt: list[str] = []
         self._segment = 0
         self._last_flush = time.monotonic()
+        self._early_notes: list[str] = []  # notes before the header is written
 
     def write(self, chunk: SampleChunk) -> None:
         """Append the chunk's samples."""
@@ -90,6 +93,12 @@ class Recorder(Sink):
         if self._fh is not None:
             self._fh.write(f"# {text}\n".encode())
             self.flush()
+
+    def on_note(self, note: Note) -> None:
+        if self._fh is None:
+            self._early_notes.append(format_note(note)[2:])
+        else:
+            self.note(format_note(note)[2:])
 
     def on_bytes(self, data: bytes) -> None:
         self.write_raw(data)
@@ -131,6 +140,7 @@ class Recorder(Sink):
         self._fh = self.path.open("wb")
         extra = self._metadata() if callable(self._metadata) else self._metadata
         head = "".join(f"# {k}: {v}\n" for k, v in {**self._meta, **extra}.items())
-        self._fh.write((head + ",".join(names) + "\n").encode())
+        notes = "".join(f"# {n}\n" for n in self._early_notes)
+        self._fh.write((head + ",".join(names) + "\n" + notes).encode())
         self._segment = chunk.segment
         self.flush()
