@@ -153,6 +153,18 @@ def build_parser() -> argparse.ArgumentParser:
                    help="tolerance profile: its settling band and rise levels")
     _add_recording_options(c)
 
+    rep = sub.add_parser("report", help="a self-contained HTML report of a recording, with"
+                         " plots")
+    rep.add_argument("file", help="recording: CSV with a header row, optionally gzip-compressed")
+    rep.add_argument("-o", "--output", metavar="HTML",
+                     help="report file (default: the recording's name with -report.html, in"
+                     " the current folder; replaced if it exists)")
+    rep.add_argument("--profile", metavar="TOML",
+                     help="tolerance profile: judge every step and show its limits")
+    rep.add_argument("--png", metavar="DIR",
+                     help="also write every plot as a PNG file into DIR (made if needed)")
+    _add_recording_options(rep)
+
     live = sub.add_parser("live", help="measure steps live from a serial port or URL,"
                           " recording everything")
     live.add_argument("port", help="device path (/dev/ttyUSB0, /dev/serial/by-id/...) or"
@@ -288,10 +300,8 @@ def _read_results(path: str, args: argparse.Namespace,
     return results, reader
 
 
-def _analyze(args: argparse.Namespace) -> int:
-    profile = load_profile(args.profile) if args.profile else None
-    settings = _analysis_settings(args, profile)
-    results, reader = _read_results(args.file, args, settings)
+def _reader_notes(reader: RecordingReader) -> list[str]:
+    """What the reader skipped or dropped, one sentence each."""
     st = reader.stats
     notes = []
     if st.bad:
@@ -300,6 +310,15 @@ def _analyze(args: argparse.Namespace) -> int:
         notes.append(f"dropped {st.repeated_time} rows repeating the previous timestamp")
     if not reader.has_setpoint:
         notes.append("no setpoint column: steps found from the feedback alone")
+    return notes
+
+
+def _analyze(args: argparse.Namespace) -> int:
+    profile = load_profile(args.profile) if args.profile else None
+    settings = _analysis_settings(args, profile)
+    results, reader = _read_results(args.file, args, settings)
+    st = reader.stats
+    notes = _reader_notes(reader)
     verdicts = None
     if profile is not None:
         from livestep.verdict import judge
@@ -392,6 +411,30 @@ def gate_status(verdicts: Sequence[StepVerdict]) -> int:
     failed or when there was no step to judge."""
     if not verdicts or any(v.verdict == "fail" for v in verdicts):
         return EXIT_FAIL
+    return EXIT_OK
+
+
+def _report(args: argparse.Namespace) -> int:
+    from dataclasses import replace
+
+    profile = load_profile(args.profile) if args.profile else None
+    settings = replace(_analysis_settings(args, profile), keep_windows=True)
+    results, reader = _read_results(args.file, args, settings)
+    st = reader.stats
+    notes = _reader_notes(reader)
+
+    from livestep.reports import read_session_info, write_report
+
+    info = read_session_info(args.file, metadata=reader.metadata, samples=st.good,
+                             first_t=st.first_time, last_t=st.last_time, notes=tuple(notes))
+    name = Path(args.file).name.removesuffix(".gz").removesuffix(".csv")
+    out = Path(args.output or f"{name}-report.html")
+    write_report(out, results, info, profile, args.png, measure=settings.measure)
+    summary = f"{len(results)} steps"
+    if profile is not None:
+        from livestep.verdict import judge
+        summary = verdict_summary([judge(r, profile).verdict for r in results], profile.name)
+    print(f"livestep: wrote {out} ({summary})", file=sys.stderr)
     return EXIT_OK
 
 
@@ -536,8 +579,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit status."""
     try:
         args = build_parser().parse_args(argv)
-        command = {"analyze": _analyze, "compare": _compare, "live": _live, "replay": _replay,
-                   "ports": _ports, "demo": _demo, "sim": _sim}
+        command = {"analyze": _analyze, "compare": _compare, "report": _report, "live": _live,
+                   "replay": _replay, "ports": _ports, "demo": _demo, "sim": _sim}
         return command[args.command](args)
     except InputError as exc:
         print(f"livestep: error: {exc}", file=sys.stderr)

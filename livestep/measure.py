@@ -99,6 +99,8 @@ class StepMetrics:
     sample_period: float
     smoothing_samples: int
     warnings: tuple[str, ...] = field(default=())
+    #: First crossing of the low rise reference level, seconds from ``t_step`` (plots).
+    rise_start: float | None = None
 
 
 def robust_level(x: FloatArray) -> float:
@@ -370,4 +372,4 @@ def measure_step(
         overshoot_pct=overshoot, undershoot_pct=undershoot, settling_time=settling_time,
         settled=settled, steady_state_error=sse, steady_state_error_pct=sse_pct, iae=iae,
         ise=ise, itae=itae, noise_sigma=sigma, sample_period=dt, smoothing_samples=window,
-        warnings=tuple(warnings))
+        warnings=tuple(warnings), rise_start=None if t_lo is None else t_lo - t_step)

@@ -53,7 +53,7 @@ class ColumnMap:
 @dataclass
 class ReadStats:
     """What the reader saw: data rows, rows skipped (with the first such line), repeated
-    timestamps dropped."""
+    timestamps dropped, and the time of the first and last good sample (seconds)."""
 
     rows: int = 0
     good: int = 0
@@ -61,6 +61,8 @@ class ReadStats:
     first_bad_line: int | None = None
     repeated_time: int = 0
     reasons: dict[str, int] = field(default_factory=dict)
+    first_time: float | None = None
+    last_time: float | None = None
 
     def skip(self, line: int, reason: str) -> None:
         self.bad += 1
@@ -256,6 +258,9 @@ class RecordingReader:
         if t.size == 0:
             return None
         self._last_t = float(t[-1])
+        if self.stats.first_time is None:
+            self.stats.first_time = float(t[0])
+        self.stats.last_time = self._last_t
         self.stats.good += t.size
         return SampleChunk(
             t=t, feedback=np.ascontiguousarray(data[:, self._fi]),

@@ -91,6 +91,8 @@ def test_clean_step_accuracy(zeta: float, y0: float, sp_change: float, gain: flo
     assert _rel(m.rise_time, ref.rise) <= 0.01
     # delay time is a crossing like the two rise-time ones: same accuracy expected
     assert _rel(m.delay_time, ref.t50) <= 0.01
+    # rise_start: the low-level crossing itself (shown on plots), same accuracy as rise
+    assert m.rise_start is not None and abs(m.rise_start - ref.t_lo) <= 0.01 * ref.rise
     assert m.settled
     assert m.settling_time is not None
     assert abs(m.settling_time - ref.settling) <= max(0.02 * ref.settling, 2 * rec.dt)

@@ -1,0 +1,201 @@
+"""Report figures: one step's response, and one metric over the session.
+
+Pure functions from results to matplotlib ``Figure`` objects (no pyplot, so no GUI
+backend and no global state), then to SVG text or PNG files. Every curve differs by
+line style and marker as well as by colour, so the plots read in black and white.
+"""
+
+from __future__ import annotations
+
+import io
+import re
+from collections.abc import Iterator, Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+
+import matplotlib
+import numpy as np
+from matplotlib.figure import Figure
+
+from livestep.analysis import StepResult
+from livestep.second_order import step_response
+
+__all__ = ["TrendPoint", "save_png", "step_figure", "svg_text", "trend_figure"]
+
+_RC = {"svg.fonttype": "none", "svg.hashsalt": "livestep", "font.size": 8.5,
+       "axes.grid": True, "grid.color": "0.88", "grid.linewidth": 0.5,
+       "legend.fontsize": 7.5, "legend.framealpha": 0.9}
+_STEP_SIZE = (7.2, 3.3)  # inches
+_TREND_SIZE = (3.6, 2.3)
+# Fixed margins (fractions of the figure): room for 7-character tick labels and the axis
+# labels, and on the right of step plots for the reference-level labels. Measured
+# against matplotlib's constrained layout, which takes three quarters of the drawing time.
+_STEP_MARGINS = dict(left=0.105, right=0.935, bottom=0.135, top=0.915)
+_TREND_MARGINS = dict(left=0.2, right=0.97, bottom=0.175, top=0.89)
+#: marker of a trend point by verdict: small circle, triangle, a big cross
+_VERDICT_MARKERS = {"pass": ("o", "black", 4.0), "warn": ("^", "tab:orange", 6.5),
+                    "fail": ("X", "tab:red", 8.0)}
+
+
+@contextmanager
+def _style() -> Iterator[None]:
+    with matplotlib.rc_context(_RC):
+        yield
+
+
+def _view_end(result: StepResult, span: float) -> float:
+    """Seconds after the step to show: twice the settling time, or the whole window."""
+    m = result.metrics
+    if m.settled and m.settling_time:
+        reach = max(2.0 * m.settling_time, 4.0 * ((m.rise_start or 0.0) + (m.rise_time or 0.0)))
+        return min(span, reach)
+    return span
+
+
+def _thin(t: np.ndarray, y: np.ndarray, most: int = 4000) -> tuple[np.ndarray, np.ndarray]:
+    """At most about ``most`` points of a long trace: the lowest and highest sample of each
+    run of samples, in time order, so the drawn envelope (noise, spikes) is unchanged."""
+    if t.size <= most:
+        return t, y
+    k = -(-t.size // (most // 2))
+    n = t.size // k * k
+    runs = y[:n].reshape(-1, k)
+    base = np.arange(0, n, k)[:, None]
+    picks = np.sort(np.hstack((base + runs.argmin(axis=1)[:, None],
+                               base + runs.argmax(axis=1)[:, None])), axis=1).ravel()
+    picks = np.concatenate((picks, np.arange(n, t.size)))
+    return t[picks], y[picks]
+
+
+def step_figure(result: StepResult, *, settling_band: float = 2.0,
+                rise_levels: tuple[float, float] = (10.0, 90.0),
+                title: str | None = None) -> Figure:
+    """Setpoint and feedback of one step (``result.window`` must be set) against time from
+    the step instant (seconds), with the settling band (+-``settling_band`` % of
+    |amplitude| around the final level), the rise reference levels (% of amplitude),
+    the rise, peak and settling instants and the fitted model when there is one."""
+    w = result.window
+    if w is None:
+        raise ValueError("the result has no samples: analyse with keep_windows=True")
+    m = result.metrics
+    with _style():
+        fig = Figure(figsize=_STEP_SIZE)
+        fig.subplots_adjust(**_STEP_MARGINS)
+        ax = fig.add_subplot()
+        t = w.t - m.t_step
+        end = _view_end(result, float(t[-1]))
+        start = max(float(t[0]), -0.1 * end)
+        shown = (t >= start) & (t <= end)
+        if w.setpoint is not None:
+            ax.plot(*_thin(t[shown], w.setpoint[shown]), color="0.45", linestyle=(0, (5, 2)),
+                    linewidth=1.3, drawstyle="steps-post", label="setpoint")
+        ax.plot(*_thin(t[shown], w.feedback[shown]), color="black", linewidth=0.8,
+                label="feedback")
+        amp = m.amplitude
+        half = abs(amp) * settling_band / 100.0
+        ax.fill_between([0.0, end], m.final - half, m.final + half, color="0.8", alpha=0.6,
+                        hatch="////", edgecolor="0.55", linewidth=0.0,
+                        label=f"settling band \u00b1{settling_band:g} %")
+        for pct, style in ((rise_levels[0], ":"), (50.0, (0, (1, 3))), (rise_levels[1], ":")):
+            level = m.initial + pct / 100.0 * amp
+            ax.axhline(level, color="0.35", linestyle=style, linewidth=0.7)
+            ax.annotate(f"{pct:g} %", (1.0, level), xycoords=("axes fraction", "data"),
+                        xytext=(2, 0), textcoords="offset points", va="center", fontsize=7)
+        if result.model is not None:
+            f = result.model
+            tm = np.linspace(start, end, 600)
+            ym = m.initial + f.amplitude * step_response(tm - f.dead_time, f.zeta, f.wn)
+            ax.plot(tm, ym, color="tab:blue", linestyle="-.", linewidth=1.1,
+                    label=f"model \u03b6={f.zeta:.3g}, \u03c9n={f.wn:.3g} rad/s,"
+                    f" dead {1e3 * f.dead_time:.3g} ms")
+        if m.rise_start is not None and m.rise_time is not None:
+            lo, hi = (m.initial + p / 100.0 * amp for p in rise_levels)
+            ax.plot([m.rise_start, m.rise_start + m.rise_time], [lo, hi], linestyle="none",
+                    marker="o", markersize=6, markerfacecolor="white", markeredgecolor="black",
+                    label=f"rise {1e3 * m.rise_time:.3g} ms")
+        if m.peak_time is not None and m.peak is not None:
+            ax.plot([m.peak_time], [m.peak], linestyle="none", marker="v" if amp > 0 else "^",
+                    markersize=7, color="black",
+                    label=f"peak {1e3 * m.peak_time:.3g} ms, {m.overshoot_pct:.3g} %")
+        if m.settling_time is not None:
+            ax.axvline(m.settling_time, color="black", linestyle=":", linewidth=1.4,
+                       label=f"settled {1e3 * m.settling_time:.3g} ms")
+        ax.set_xlim(start, end)
+        ax.set_xlabel("time from the step instant, s")
+        ax.set_ylabel("feedback" if w.setpoint is None else "setpoint, feedback")
+        ax.set_title(title or f"step {result.index} at t = {m.t_step:.4g} s", loc="left")
+        ax.legend(loc="best")
+    return fig
+
+
+@dataclass(frozen=True)
+class TrendPoint:
+    """One step's value of a metric (``None``: undefined for that step), its verdict on
+    that metric and the limits that applied to it (metric's units, ``None``: no limit)."""
+
+    index: int
+    value: float | None
+    verdict: str | None = None
+    low: float | None = None
+    high: float | None = None
+
+
+def trend_figure(points: Sequence[TrendPoint], *, label: str, unit: str) -> Figure:
+    """A metric against the step index, each step's marker showing its verdict on this
+    metric, with the low and high limits drawn as lines (stepping where a ``[[when]]``
+    section gives some steps other limits)."""
+    with _style():
+        fig = Figure(figsize=_TREND_SIZE)
+        fig.subplots_adjust(**_TREND_MARGINS)
+        ax = fig.add_subplot()
+        known = [p for p in points if p.value is not None]
+        ax.plot([p.index for p in known], [p.value for p in known], color="0.4",
+                linewidth=0.8)
+        for verdict, (marker, colour, size) in _VERDICT_MARKERS.items():
+            sel = [p for p in known if p.verdict == verdict]
+            if sel:
+                ax.plot([p.index for p in sel], [p.value for p in sel], linestyle="none",
+                        marker=marker, color=colour, markeredgecolor="black",
+                        markersize=size, label=verdict)
+        unjudged = [p for p in known if p.verdict not in _VERDICT_MARKERS]
+        if unjudged:
+            ax.plot([p.index for p in unjudged], [p.value for p in unjudged],
+                    linestyle="none", marker="o", color="black", markersize=4.0)
+        x = [p.index for p in points]
+        for attr, style, name in (("low", "--", "min"), ("high", (0, (6, 2, 1, 2)), "max")):
+            ys = [np.nan if getattr(p, attr) is None else getattr(p, attr) for p in points]
+            if not all(np.isnan(ys)):
+                ax.plot(x, ys, color="black", linestyle=style, linewidth=1.0,
+                        drawstyle="steps-mid", label=name)
+        ax.set_xlabel("step")
+        # The name as a title, not a y label: long tick labels (0.999991) then still fit.
+        ax.set_title(f"{label}, {unit}" if unit else label, loc="left")
+        ax.xaxis.get_major_locator().set_params(integer=True)
+        ax.ticklabel_format(axis="y", useOffset=False)
+        if ax.get_legend_handles_labels()[0]:
+            ax.legend(loc="best", fontsize=6.5)
+    return fig
+
+
+_ID_REF = re.compile(r'(\bid="|url\(#|href="#)([^")]+)')
+_METADATA = re.compile(r"\s*<metadata>.*?</metadata>", re.DOTALL)
+
+
+def svg_text(fig: Figure, prefix: str) -> str:
+    """The figure as an ``<svg>`` element to put inline in HTML: no XML declaration or
+    doctype, every id (and every reference to one) prefixed with ``prefix`` so several
+    plots in one page never share an id, and no metadata block (no date: the output is
+    reproducible)."""
+    buf = io.StringIO()
+    with _style():
+        fig.savefig(buf, format="svg", metadata={"Date": None})
+    text = buf.getvalue()
+    text = _METADATA.sub("", text[text.index("<svg"):])
+    return _ID_REF.sub(lambda mo: f"{mo.group(1)}{prefix}{mo.group(2)}", text)
+
+
+def save_png(fig: Figure, path: str | Path, dpi: int = 120) -> None:
+    """Write the figure as a PNG file (Agg renderer)."""
+    with _style():
+        fig.savefig(path, format="png", dpi=dpi)
