@@ -69,6 +69,7 @@ class PlanRunner:
         self._samples = 0
         self._last_data = 0.0
         self._finished = False
+        self._noted: dict[str, str] = {}  # the plan notes in force, by name
 
     # -- driver interface (run_live) ------------------------------------------------------
     def begin(self, link: Link, session: Session) -> None:
@@ -106,7 +107,9 @@ class PlanRunner:
         cmd = self.plan.commands[self._next]
         if cmd.kind == "setpoint":  # the steps it causes carry the entry as tags
             for name, value in cmd.tags:
-                session.add_note(name, value)
+                if self._noted.get(name) != value:
+                    session.add_note(name, value)
+                    self._noted[name] = value
         if not self._send(cmd.text):
             return self._after_loss(now)
         self.out(f"plan: {cmd.entry}/{len(self.plan.commands)} sent {cmd.text!r}")
