@@ -204,6 +204,7 @@ def build_parser() -> argparse.ArgumentParser:
                       help="stop after S seconds (default: run until Ctrl-C)")
     live.add_argument("--json-lines", action="store_true",
                       help="print each step as one JSON object per line")
+    _add_plan_options(live)
     _add_stream_options(live)
     _add_analysis_options(live)
 
@@ -240,7 +241,71 @@ def build_parser() -> argparse.ArgumentParser:
     _add_analysis_options(w)
 
     sub.add_parser("ports", help="list the serial ports present")
+
+    demo = sub.add_parser("demo", help="the whole tool on a virtual bench (no hardware):"
+                          " a built-in step plan with gain changes, measured live")
+    demo.add_argument("--quick", action="store_true", help="a short plan (about 4 s)")
+    demo_rec = demo.add_mutually_exclusive_group()
+    demo_rec.add_argument("--record", metavar="FILE", help="recording file (default"
+                          " livestep-demo-YYYYmmdd-HHMMSS.csv; never overwritten)")
+    demo_rec.add_argument("--no-record", action="store_true", help="do not record")
+    demo.add_argument("--format", choices=("text", "binary"), default="text",
+                      help="what the virtual bench streams (default text)")
+    demo.add_argument("--seed", type=int, default=1, help="noise seed (default 1)")
+    demo.add_argument("--json-lines", action="store_true",
+                      help="print each step as one JSON object per line")
+
+    sim = sub.add_parser("sim", help="run a virtual bench (a simulated controller) on a"
+                         " pseudo-terminal and print the path to connect to")
+    _add_sim_options(sim)
     return p
+
+
+def _add_plan_options(p: argparse.ArgumentParser) -> None:
+    g = p.add_argument_group("step plan (sends commands to the controller only with --send)")
+    g.add_argument("--plan", metavar="FILE", help="step plan (TOML); the options below"
+                   " override its keys")
+    g.add_argument("--levels", metavar="A,B,...", help="setpoint levels, in order")
+    g.add_argument("--dwell", type=_positive, metavar="S", help="seconds at each level")
+    g.add_argument("--repeats", type=int, metavar="N", help="passes through the levels")
+    g.add_argument("--rest", type=float, metavar="X", help="setpoint before the plan")
+    g.add_argument("--min", type=float, metavar="X", help="lowest setpoint allowed")
+    g.add_argument("--max", type=float, metavar="X", help="highest setpoint allowed")
+    g.add_argument("--max-step", type=_positive, metavar="X",
+                   help="largest setpoint change allowed")
+    g.add_argument("--setpoint-command", metavar="TEMPLATE",
+                   help="the controller's setpoint command, e.g. 'sp {value}'")
+    g.add_argument("--safe-command", metavar="TEXT", help="sent once at the end, on error,"
+                   " link loss and Ctrl-C (default: the setpoint command at --rest)")
+    g.add_argument("--send", action="store_true",
+                   help="really send the plan to the controller (without it, the plan is"
+                   " only shown)")
+    g.add_argument("--no-confirm", action="store_true",
+                   help="do not ask before sending (unattended rigs only)")
+
+
+def _add_sim_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--plant", choices=("axis", "second-order"), default="axis",
+                   help="axis: the PID-controlled transfer axis (gains matter); second-order:"
+                   " the exact response given by --zeta, --wn, --gain, --dead-time")
+    p.add_argument("--rate", type=_positive, default=2000.0, metavar="HZ",
+                   help="samples per second (default 2000)")
+    p.add_argument("--format", choices=("text", "binary"), default="text",
+                   help="text lines (t in us, setpoint, feedback) or binary frames")
+    p.add_argument("--seed", type=int, default=1, help="noise seed (default 1)")
+    p.add_argument("--wrap-after", type=_positive, metavar="S",
+                   help="start the 32-bit microsecond clock so it wraps after S seconds")
+    p.add_argument("--link", metavar="PATH", help="also make a symlink PATH to the device")
+    p.add_argument("--duration", type=_positive, metavar="S", help="stop after S seconds")
+    so = p.add_argument_group("second-order plant")
+    so.add_argument("--zeta", type=_positive, default=0.5, help="damping ratio (default 0.5)")
+    so.add_argument("--wn", type=_positive, default=40.0,
+                    help="natural frequency, rad/s (default 40)")
+    so.add_argument("--gain", type=float, default=1.0, help="static gain (default 1)")
+    so.add_argument("--dead-time", type=float, default=0.0, metavar="S",
+                    help="dead time, seconds (default 0)")
+    so.add_argument("--noise", type=float, default=0.0,
+                    help="measurement noise sigma, feedback units (default 0)")
 
 
 def _add_recording_options(p: argparse.ArgumentParser) -> None:
@@ -415,12 +480,61 @@ def _live(args: argparse.Namespace) -> int:
     if args.rate:
         print(f"livestep: no device time: samples stamped from their count at {args.rate:g} Hz"
               " (host arrival times come in bursts and are not used)", file=sys.stderr)
+    settings, decoder = _analysis_settings(args), _decoder(args)  # bad options fail first
+    plan = _plan(args)
+    driver = None
+    if plan is not None:
+        from livestep.plan import check_sendable, describe_plan
+        from livestep.plan_run import PlanRunner, confirm_plan
+
+        if not args.send:
+            for line in describe_plan(plan):
+                print(line)
+            print("dry run: nothing was sent (add --send to send this plan)")
+            return EXIT_OK
+        check_sendable(plan)
+        if not args.no_confirm:
+            confirm_plan(plan, args.port)
+        driver = PlanRunner(plan)
+    elif args.send:
+        raise InputError("--send needs a plan (--plan FILE or --levels)")
     record = None
     if not args.no_record:
         record = Path(args.record or time.strftime("livestep-%Y%m%d-%H%M%S.csv"))
-    return run_live(port, _decoder(args), _analysis_settings(args), record=record,
+    return run_live(port, decoder, settings, record=record,
                     raw=Path(args.raw) if args.raw else None, duration=args.duration,
-                    json_lines=args.json_lines)
+                    json_lines=args.json_lines, driver=driver)
+
+
+def _plan(args: argparse.Namespace):  # noqa: ANN202 - a Plan or None
+    from livestep.plan import load_plan_file, parse_plan
+
+    doc = load_plan_file(args.plan) if args.plan else {}
+    if args.levels is not None:
+        try:
+            doc["levels"] = [float(x) for x in args.levels.split(",")]
+        except ValueError:
+            raise InputError(f"--levels: expected numbers separated by commas, got"
+                             f" {args.levels!r}") from None
+    for key in ("dwell", "repeats", "rest"):
+        if getattr(args, key) is not None:
+            doc[key] = getattr(args, key)
+    limits = {k: getattr(args, a) for k, a in (("min", "min"), ("max", "max"),
+                                                ("max_step", "max_step"))
+              if getattr(args, a) is not None}
+    if limits:
+        doc["limits"] = {**doc.get("limits", {}), **limits}
+    cmds = {k: getattr(args, a) for k, a in (("setpoint", "setpoint_command"),
+                                              ("safe", "safe_command"))
+            if getattr(args, a) is not None}
+    if cmds:
+        doc["commands"] = {**doc.get("commands", {}), **cmds}
+    if not doc:
+        return None
+    if not isinstance(doc.get("limits", {}), dict) or not isinstance(doc.get("commands", {}),
+                                                                      dict):
+        raise InputError("limits and commands must be tables", source=args.plan or "plan")
+    return parse_plan(doc, source=args.plan or "plan options")
 
 
 def _replay(args: argparse.Namespace) -> int:
@@ -460,6 +574,52 @@ def _watch(args: argparse.Namespace) -> int:
     return run_app(watch)
 
 
+def _demo(args: argparse.Namespace) -> int:
+    from livestep.demo import run_demo
+
+    record = None
+    if not args.no_record:
+        record = Path(args.record or time.strftime("livestep-demo-%Y%m%d-%H%M%S.csv"))
+    return run_demo(quick=args.quick, record=record, fmt=args.format, seed=args.seed,
+                    json_lines=args.json_lines)
+
+
+def _sim(args: argparse.Namespace) -> int:
+    from livestep.bench.device import BenchSettings, VirtualBench, clock_start_for
+    from livestep.bench.plants import AxisPlant, SecondOrderPlant
+
+    try:
+        if args.plant == "axis":
+            plant = AxisPlant(seed=args.seed)
+        else:
+            plant = SecondOrderPlant(args.zeta, args.wn, gain=args.gain,
+                                     dead_time=args.dead_time, noise=args.noise,
+                                     seed=args.seed)
+        bench = VirtualBench(plant, BenchSettings(
+            rate=args.rate, fmt=args.format, link=Path(args.link) if args.link else None,
+            clock_start=clock_start_for(args.wrap_after) if args.wrap_after else 0))
+    except ValueError as exc:
+        raise InputError(str(exc)) from None
+    path = bench.start()
+    print(path, flush=True)
+    print(f"livestep sim: {args.plant} plant streaming {args.format} at {args.rate:g} Hz on"
+          f" {path}; commands: sp VALUE, gains kp=X ki=Y kd=Z, stream on|off, status;"
+          " Ctrl-C ends", file=sys.stderr, flush=True)
+    import signal
+    import threading
+
+    done = threading.Event()
+    previous = signal.signal(signal.SIGTERM, lambda *_: done.set())
+    try:
+        done.wait(args.duration)
+    except KeyboardInterrupt:
+        pass
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+        bench.stop()
+    return EXIT_OK
+
+
 def _ports(args: argparse.Namespace) -> int:
     from rich.console import Console
     from rich.table import Table
@@ -483,8 +643,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         args = build_parser().parse_args(argv)
         command = {"analyze": _analyze, "compare": _compare, "report": _report, "live": _live,
-                   "replay": _replay, "watch": _watch,
-                   "ports": _ports}
+                   "replay": _replay, "watch": _watch, "ports": _ports, "demo": _demo,
+                   "sim": _sim}
         return command[args.command](args)
     except InputError as exc:
         print(f"livestep: error: {exc}", file=sys.stderr)

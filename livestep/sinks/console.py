@@ -20,7 +20,7 @@ def _ms(x: float | None) -> str:
 
 
 def step_line(r: StepResult) -> str:
-    """One line summing up a step: amplitude, rise, overshoot, settling, model."""
+    """One line summing up a step: amplitude, rise, overshoot, settling, model, tags."""
     m, f = r.metrics, r.model
     settle = _ms(m.settling_time) if m.settled else "not settled"
     model = f", zeta {f.zeta:.3f}, wn {f.wn:.4g} rad/s" if f is not None else ""
@@ -45,22 +45,40 @@ def counters_table(c: LinkCounters) -> Table:
 
 
 class ConsoleSink(Sink):
-    """Prints each step and each state change."""
+    """Prints each step, each state change and the notes (those stamped at one instant on
+    one line)."""
 
     def __init__(self, console: Console) -> None:
         self.console = console
+        self._notes: list[Note] = []
 
     def on_step(self, result: StepResult) -> None:
-        self.console.print(step_line(result), highlight=False, markup=False)
+        self._print_notes()
+        self.console.print(step_line(result), highlight=False, markup=False, soft_wrap=True)
         for w in result.warnings:
             self.console.print(f"  [yellow]{w}[/]")
 
     def on_note(self, note: Note) -> None:
-        self.console.print(f"note at {note.t:.3f} s: {note.name}={note.value}", markup=False,
-                           highlight=False)
+        if self._notes and self._notes[0].t != note.t:
+            self._print_notes()
+        self._notes.append(note)
 
     def on_state(self, state: str) -> None:
+        self._print_notes()
         self.console.print(f"[bold]link {state}[/]")
+
+    def on_tick(self, counters: LinkCounters) -> None:
+        self._print_notes()
+
+    def close(self, counters: LinkCounters) -> None:
+        self._print_notes()
+
+    def _print_notes(self) -> None:
+        if self._notes:
+            pairs = ", ".join(f"{n.name}={n.value}" for n in self._notes)
+            self.console.print(f"note at {self._notes[0].t:.3f} s: {pairs}", markup=False,
+                               highlight=False, soft_wrap=True)
+            self._notes = []
 
 
 class JsonLinesSink(Sink):

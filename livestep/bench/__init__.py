@@ -1,0 +1,1 @@
+"""The virtual bench: a simulated drive controller on the other end of a serial link."""
