@@ -254,6 +254,9 @@ def build_parser() -> argparse.ArgumentParser:
     demo.add_argument("--seed", type=int, default=1, help="noise seed (default 1)")
     demo.add_argument("--json-lines", action="store_true",
                       help="print each step as one JSON object per line")
+    demo.add_argument("--console", action="store_true",
+                      help="print to the console instead of opening the terminal UI (the"
+                      " default when the output is not a terminal)")
 
     sim = sub.add_parser("sim", help="run a virtual bench (a simulated controller) on a"
                          " pseudo-terminal and print the path to connect to")
@@ -580,6 +583,10 @@ def _demo(args: argparse.Namespace) -> int:
     record = None
     if not args.no_record:
         record = Path(args.record or time.strftime("livestep-demo-%Y%m%d-%H%M%S.csv"))
+    if not (args.console or args.json_lines) and sys.stdout.isatty():
+        from livestep.tui.app import run_demo_app
+
+        return run_demo_app(quick=args.quick, record=record, fmt=args.format, seed=args.seed)
     return run_demo(quick=args.quick, record=record, fmt=args.format, seed=args.seed,
                     json_lines=args.json_lines)
 

@@ -117,6 +117,7 @@ class Snapshot:
     version: int
     done: bool
     error: str | None = None
+    said: str = ""  # the latest line of the driver (a plan runner), for the display
 
 
 class _Ring:
@@ -225,6 +226,7 @@ class Watch:
         self._entries: list[StepEntry] = []
         self._notes: list[Note] = []
         self._new_notes: list[Note] = []
+        self._said = ""
         self._data_time: float | None = None
         self._last_data: float | None = None
         self._version = 0
@@ -289,6 +291,12 @@ class Watch:
             self._new_notes.append(note)
         return note
 
+    def say(self, line: str) -> None:
+        """Keep ``line`` (from any thread, e.g. a plan runner's progress) for the display."""
+        with self._lock:
+            self._said = line
+            self._version += 1
+
     def snapshot(self) -> Snapshot:
         with self._lock:
             ring_n = self._ring.n
@@ -306,7 +314,7 @@ class Watch:
                 steps=tuple(self._entries), notes=tuple(self._notes),
                 speed=getattr(self.source, "speed", None),
                 profile=getattr(self.profile, "name", None), version=self._version,
-                done=self._done.is_set(), error=self._error)
+                done=self._done.is_set(), error=self._error, said=self._said)
 
     def samples(self, since: float | None = None, count: int = 1 << 16) -> Samples:
         """Copies of the recent samples: from device time ``since`` (seconds), or the

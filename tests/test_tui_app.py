@@ -264,9 +264,17 @@ def test_main_screen_snapshot(tmp_path, monkeypatch):
     drive(app, script)
 
 
-def run_in_terminal(args: list[str], keys: bytes | None, size=(24, 80), seconds: float = 3.0):
-    """Run ``livestep`` on a real pseudo-terminal of ``size`` (rows, columns) for a while,
-    then type ``keys`` (or send SIGTERM): its exit status and everything it drew."""
+def plain_terminal_text(raw: bytes) -> str:
+    """What a terminal program drew, its escape sequences removed."""
+    return re.sub(r"\x1b\[[0-9;?<>=]*[A-Za-z~]|\x1b[\]P][^\x07\x1b]*(\x07|\x1b\\)|\x1b.", "",
+                  raw.decode("utf-8", "replace"))
+
+
+def run_in_terminal(args: list[str], keys: bytes | None, *, until: str, size=(24, 80),
+                    timeout: float = 30.0) -> tuple[int, str]:
+    """Run ``livestep`` on a real pseudo-terminal of ``size`` (rows, columns) until it has
+    drawn ``until`` (bounded by ``timeout``), then type ``keys`` (or send SIGTERM): its
+    exit status and everything it drew."""
     master, slave = os.openpty()
     fcntl.ioctl(slave, termios.TIOCSWINSZ, struct.pack("HHHH", *size, 0, 0))
     env = dict(os.environ, TERM="xterm-256color")
@@ -276,38 +284,36 @@ def run_in_terminal(args: list[str], keys: bytes | None, size=(24, 80), seconds:
     os.close(slave)
     out = b""
 
-    def read_for(t: float) -> bytes:
-        got, end = b"", time.monotonic() + t
-        while time.monotonic() < end and proc.poll() is None:
+    def read(stop) -> None:  # noqa: ANN001
+        nonlocal out
+        end = time.monotonic() + timeout
+        while time.monotonic() < end and proc.poll() is None and not stop():
             if select.select([master], [], [], 0.05)[0]:
                 try:
-                    got += os.read(master, 1 << 16)
+                    out += os.read(master, 1 << 16)
                 except OSError:
-                    break
-        return got
+                    return
 
     try:
-        out += read_for(seconds)
+        read(lambda: until in plain_terminal_text(out[-20000:]))
         if keys is None:
             proc.send_signal(signal.SIGTERM)
         else:
             os.write(master, keys)
-        out += read_for(15.0)
+        read(lambda: False)
         status = proc.wait(timeout=15)
     finally:
         if proc.poll() is None:
             proc.kill()
         os.close(master)
-    text = re.sub(r"\x1b\[[0-9;?<>=]*[A-Za-z~]|\x1b[\]P][^\x07\x1b]*(\x07|\x1b\\)|\x1b.", "",
-                  out.decode("utf-8", "replace"))
-    return status, text
+    return status, plain_terminal_text(out)
 
 
 def test_a_real_terminal_shows_the_replay_and_quits(tmp_path):
     profile = tmp_path / "gate.toml"
     profile.write_text(PROFILE)
     status, text = run_in_terminal(["watch", str(FIXTURE), "--speed", "20", "--profile",
-                                    str(profile)], b"q")
+                                    str(profile)], b"q", until="replay finished")
     assert status == 0
     assert "replay finished" in text and "✘ fail" in text and "✔ pass" in text
     assert "Traceback" not in text
@@ -316,6 +322,15 @@ def test_a_real_terminal_shows_the_replay_and_quits(tmp_path):
 def test_sigterm_ends_the_ui_cleanly_and_keeps_the_recording(tmp_path):
     rec = tmp_path / "t.csv"
     status, text = run_in_terminal(["watch", str(FIXTURE), "--speed", "4", "--record",
-                                    str(rec)], None, seconds=2.0)
+                                    str(rec)], None, until="step 1 ")
     assert status == 0 and "Traceback" not in text
     assert rec.read_text().rstrip().splitlines()[-1].startswith("# counters: ")
+
+
+def test_the_demo_opens_the_ui_and_runs_its_plan(tmp_path):
+    rec = tmp_path / "demo.csv"
+    status, text = run_in_terminal(["demo", "--quick", "--record", str(rec)], b"q",
+                                   until="■ stopped", size=(36, 120))
+    assert status == 0 and "Traceback" not in text and "■ stopped" in text
+    assert "virtual bench" in text and "gains=soft" in text and "gains=firm" in text
+    assert "# counters: " in rec.read_text()

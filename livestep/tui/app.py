@@ -24,6 +24,7 @@ from textual.screen import ModalScreen
 from textual.widget import Widget
 from textual.widgets import DataTable, Footer, Input, Static
 
+from livestep.analysis import AnalysisSettings
 from livestep.errors import EXIT_OK, InputError
 from livestep.sources.replay import ReplaySource
 from livestep.tags import parse_notes
@@ -181,6 +182,7 @@ class LivestepApp(App[int]):
         self._link: Text | None = None
         self._shown: tuple | None = None
         self._plotted: tuple | None = None
+        self._said = ""
         self.shown_at: dict[int, float] = {}  # step index -> when its row appeared
         self._chained = watch.on_step
         watch.on_step = self._notify_step
@@ -255,6 +257,9 @@ class LivestepApp(App[int]):
                 self._rows += 1
             if new and self.selected is None:
                 self._move_cursor(self._rows - 1)
+            if snap.said and snap.said != self._said:
+                self._said = snap.said
+                self.say(snap.said)
             self._update_step(snap)
 
     def _entry(self, snap: Snapshot) -> StepEntry | None:
@@ -420,6 +425,33 @@ class LivestepApp(App[int]):
 
     def action_quit(self) -> None:
         self.exit(EXIT_OK)
+
+
+def run_demo_app(*, quick: bool = False, record: Path | None = None, fmt: str = "text",
+                 seed: int = 1, settings: AnalysisSettings | None = None) -> int:
+    """``livestep demo`` in the terminal UI: the virtual bench on a pty, the built-in plan
+    sent by a plan runner (its progress on the message line), everything else as live."""
+    from livestep.demo import demo_bench, demo_decoder, demo_plan
+    from livestep.live import metadata_for
+    from livestep.plan_run import PlanRunner
+    from livestep.sources.serial_port import PortSettings, SerialReader
+
+    bench = demo_bench(fmt=fmt, seed=seed)
+    path = bench.start()
+    try:
+        name = f"livestep demo (virtual bench on {path})"
+        decoder = demo_decoder()
+        holder: list[Watch] = []
+        runner = PlanRunner(demo_plan(quick), out=lambda line: holder[0].say(line))
+        watch = Watch(SerialReader(PortSettings(url=path)), decoder,
+                      settings if settings is not None else AnalysisSettings(),
+                      source_name=name, record=record, metadata=metadata_for(name, decoder),
+                      driver=runner)
+        holder.append(watch)
+        status = run_app(watch)
+        return status if status != EXIT_OK else runner.exit_status
+    finally:
+        bench.stop()
 
 
 def run_app(watch: Watch) -> int:
