@@ -8,15 +8,17 @@ with scipy.signal.lsim, noise added) is played in real time through
 2. the terminal UI (``LivestepApp`` under textual's headless ``run_test``, 120 x 36),
    with a key (``m``, the model overlay) pressed every 0.5 s,
 
-from a replay at the forced rate and (``--source pty``, or ``both``) from a writer
-process pushing the same lines into a pseudo-terminal in real time. Reported: UI
+from a replay at the forced rate, from a writer process pushing the same lines into a
+pseudo-terminal in real time (``pty``), and from the virtual bench (``bench``: the demo's
+transfer axis streaming at 20 kHz in this process, stepped by the demo's plan, about
+15 s; its CPU counts on both sides). Reported: UI
 frames per second against the 15 frames/s target, key response (press to the state
 change, target < 100 ms), verdict latency (the instant the step's window ends in the
 replay's schedule, to its verdict being in the history table, target < 100 ms; the
 baseline's is to the step being published), and the CPU of the whole process, with
 the UI's CPU as a ratio of the headless baseline's.
 
-Usage: python tools/bench_tui.py [--seconds S] [--source replay|pty|both] [--quick]
+Usage: python tools/bench_tui.py [--seconds S] [--source replay|pty|bench|all] [--quick]
 """
 
 from __future__ import annotations
@@ -95,8 +97,34 @@ def cpu() -> float:
     return r.ru_utime + r.ru_stime
 
 
-def make_watch(kind: str, path: Path) -> tuple[Watch, subprocess.Popen | None, int | None]:
+class BenchRun:
+    """The virtual bench (the demo's transfer axis) at 20 kHz with the demo's plan; it runs
+    in this process, so its CPU is counted on both sides."""
+
+    def __init__(self) -> None:
+        from livestep.demo import demo_bench
+
+        self.bench = demo_bench(rate=RATE)
+        self.path = self.bench.start()
+
+    def poll(self) -> int | None:  # like Popen.poll: None while running
+        return None
+
+    def close(self) -> None:
+        self.bench.stop()
+
+
+def make_watch(kind: str, path: Path) -> tuple[Watch, object | None, int | None]:
     settings = AnalysisSettings()
+    if kind == "bench":
+        from livestep.demo import demo_decoder, demo_plan
+        from livestep.plan_run import PlanRunner
+
+        run = BenchRun()
+        watch = Watch(SerialReader(PortSettings(url=run.path)), demo_decoder(), settings,
+                      source_name="virtual bench", profile=PROFILE,
+                      driver=PlanRunner(demo_plan(), out=lambda line: None))
+        return watch, run, None
     if kind == "replay":
         src = ReplaySource(path, speed=1.0)
         return Watch(src, make_decoder("text"), settings, source_name=str(path),
@@ -150,12 +178,17 @@ def run_headless(kind: str, path: Path, seconds: float) -> dict:
     clock = _chunk_clock(watch)
     c0, w0 = cpu(), time.monotonic()
     watch.start()
-    watch.wait(seconds + 30) if kind == "replay" else proc.wait()
+    if kind == "pty":
+        proc.wait()
+    else:
+        watch.wait(seconds + 60)
     watch.stop()
     watch.wait(30)
     wall, used = time.monotonic() - w0, cpu() - c0
     if slave is not None:
         os.close(slave)
+    if isinstance(proc, BenchRun):
+        proc.close()
     shown = {e.result.index: e.published for e in watch.snapshot().steps}
     return {"wall": wall, "cpu": used, "steps": len(watch.snapshot().steps),
             "samples": watch.snapshot().counters["samples"],
@@ -199,6 +232,8 @@ def run_ui(kind: str, path: Path, seconds: float) -> dict:
     watch.wait(30)
     if slave is not None:
         os.close(slave)
+    if isinstance(proc, BenchRun):
+        proc.close()
     snap = watch.snapshot()
     out.update(steps=len(snap.steps), samples=snap.counters["samples"], keys=keys,
                frame_ms=[1e3 * f for f in frame_times],
@@ -213,11 +248,11 @@ def pct(xs: list[float], q: float) -> float:
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--seconds", type=float, default=20.0, help="seconds of 20 kHz data")
-    ap.add_argument("--source", choices=("replay", "pty", "both"), default="both")
+    ap.add_argument("--source", choices=("replay", "pty", "bench", "all"), default="all")
     ap.add_argument("--quick", action="store_true", help="6 s of data, replay only")
     args = ap.parse_args()
     seconds = 6.0 if args.quick else args.seconds
-    kinds = ["replay"] if args.quick else (["replay", "pty"] if args.source == "both"
+    kinds = ["replay"] if args.quick else (["replay", "pty", "bench"] if args.source == "all"
                                            else [args.source])
     console = Console(width=150)
     with tempfile.TemporaryDirectory(prefix="livestep-bench-tui-") as tmp:
