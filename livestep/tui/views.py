@@ -7,6 +7,7 @@ is tested without an app.
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -82,8 +83,10 @@ def link_text(snap: Snapshot, *, narrow: bool = False) -> Text:
         t.append(" (" + ", ".join(f"{k} {n}" for k, n in worst) + ")")
     t.append(f"  gaps {c['gaps']}  lost {c['lost']}  reconnects {c['reconnects']}"
              f"  samples {c['samples']}")
-    rec = snap.recording or "not recording"
-    t.append(f"  rec {rec}" if not narrow else f"  rec {rec.rsplit('/', 1)[-1]}")
+    if snap.recording is None:
+        t.append("  not recording")
+    else:
+        t.append(f"  rec {snap.recording if not narrow else Path(snap.recording).name}")
     if snap.error:
         t.append(f"\nerror: {snap.error}", "bold red")
     return t
