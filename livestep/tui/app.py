@@ -17,7 +17,7 @@ from pathlib import Path
 from rich.text import Text
 from textual.app import App, ComposeResult
 from textual.binding import Binding
-from textual.containers import Horizontal, Vertical
+from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.css.query import NoMatches
 from textual.message import Message
 from textual.screen import ModalScreen
@@ -99,9 +99,12 @@ class HelpScreen(ModalScreen[None]):
             lines.append(f"  {sym} {state}\n")
         lines.append("\nPlot: r rise (lower and upper level crossings), p peak, s settled;"
                      " dashed lines: settling band and rise reference levels.\n")
-        lines.append("\nEscape, q or ? closes this screen.", "dim")
-        with Vertical(id="help-box"):
+        lines.append("\nEscape, q or ? closes this screen; arrows scroll it.", "dim")
+        with VerticalScroll(id="help-box"):
             yield Static(lines)
+
+    def on_mount(self) -> None:
+        self.query_one("#help-box").focus()  # arrows and page keys scroll a long help
 
     def action_close(self) -> None:
         self.dismiss(None)
@@ -143,18 +146,17 @@ class LivestepApp(App[int]):
     FPS = 15.0
     HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (110, "-wide")]
     BINDINGS = [
-        Binding("space", "pause", "pause", tooltip="pause / resume: a replay stops playing;"
-                " live, the view holds still while recording and measuring go on"),
+        Binding("space", "pause", "pause",
+                tooltip="pause / resume (replay: playback; live: the view)"),
         Binding("left,up", "older", "older", key_display="←/↑",
                 tooltip="show the previous step of the history"),
         Binding("right,down", "newer", "newer", key_display="→/↓",
                 tooltip="show the next step of the history"),
         Binding("end,l", "follow", "live", key_display="end/l",
-                tooltip="follow the live stream: newest step and current samples"),
-        Binding("n", "note", "note", tooltip="add a note (e.g. gains=B) that tags the"
-                " following steps"),
+                tooltip="follow the stream: newest step, current samples"),
+        Binding("n", "note", "note", tooltip="add a note (e.g. gains=B) tagging the next steps"),
         Binding("m", "model", "model", tooltip="show / hide the fitted model over the data"),
-        Binding("s", "save", "report", tooltip="save a report of the steps so far"),
+        Binding("s", "save", "report", tooltip="save an HTML report of the steps so far"),
         Binding("plus,equals_sign", "faster", "faster", key_display="+", show=False,
                 tooltip="replay: twice as fast"),
         Binding("minus", "slower", "slower", key_display="-", show=False,
