@@ -149,9 +149,13 @@ class _Ring:
         return self.data[:, idx]
 
     def since(self, t0: float) -> FloatArray:
+        """The samples from time ``t0`` on, copying only those (each of the ring's two
+        stretches is in time order)."""
         cap = self.data.shape[1]
-        have = self.last(min(self.n, cap))
-        return have[:, np.searchsorted(have[0], t0):]
+        end = self.n % cap
+        parts = [(0, self.n)] if self.n <= cap else [(end, cap), (0, end)]
+        count = sum(b - a - int(np.searchsorted(self.data[0, a:b], t0)) for a, b in parts)
+        return self.last(count)
 
 
 def results_log_path(recording: Path) -> Path:

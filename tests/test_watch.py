@@ -14,6 +14,7 @@ import threading
 import time
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from livestep.analysis import AnalysisSettings
@@ -261,3 +262,17 @@ def test_a_driver_acts_on_the_link_and_ends_the_session(tmp_path):
     assert got == b"sp 1\n" and result == [0]
     assert driver.calls[:2] == ["begin", "connected"] and driver.calls[-1] == "end done"
     assert "# source: bench double" in (tmp_path / "d.csv").read_text()
+
+
+def test_ring_buffer_keeps_the_last_samples_in_order():
+    from livestep.watch import _Ring
+
+    ring = _Ring(10)
+    t = np.arange(23.0)
+    for a, b in ((0, 4), (4, 15), (15, 16), (16, 23)):  # wraps twice, one chunk > capacity
+        ring.append(t[a:b], None, 2 * t[a:b])
+    assert ring.last(100)[0].tolist() == list(range(13, 23))
+    assert ring.since(17.5)[0].tolist() == [18, 19, 20, 21, 22]
+    assert ring.since(17.5)[2].tolist() == [36, 38, 40, 42, 44]
+    assert ring.since(0.0)[0].tolist() == list(range(13, 23))
+    assert ring.since(99.0).shape == (3, 0)

@@ -144,6 +144,7 @@ class LivestepApp(App[int]):
     TITLE = "livestep"
     ENABLE_COMMAND_PALETTE = False
     FPS = 15.0
+    LIVE_SPAN = 10.0  # s: the longest stretch the live plot shows
     HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (110, "-wide")]
     BINDINGS = [
         Binding("space", "pause", "pause",
@@ -306,7 +307,7 @@ class LivestepApp(App[int]):
         start = end - 5.0
         if entry is not None:
             start = max(entry.result.metrics.t_step - 0.1 * (end - entry.result.metrics.t_step),
-                        end - 30.0)
+                        end - self.LIVE_SPAN)
         samples = self.watch.samples(since=start)
         plot.show(views.step_plot(samples, entry, measure, x_range=(start, end),
                                   model=self.show_model, narrow=self.narrow))
