@@ -12,7 +12,6 @@ stream: the recent samples live in a fixed ring buffer and only the last
 
 from __future__ import annotations
 
-import contextlib
 import json
 import queue
 import threading
@@ -124,7 +123,7 @@ class _Ring:
     """Fixed-size ring buffer of (t, setpoint, feedback) samples."""
 
     def __init__(self, capacity: int) -> None:
-        self.data = np.full((3, capacity), np.nan)
+        self.data = np.empty((3, capacity))  # only written samples are ever read
         self.n = 0  # samples ever written
 
     def append(self, t: FloatArray, sp: FloatArray | None, fb: FloatArray) -> None:
@@ -425,7 +424,22 @@ class Watch:
         finally:
             self._finish()
 
+    def _drain(self) -> None:
+        """Decode what the reader has queued (a file loses nothing by being left)."""
+        try:
+            while self._error is None and not self.replay:
+                try:
+                    kind, payload = self.source.events.get_nowait()
+                except queue.Empty:
+                    return
+                if kind == "data":
+                    self._handle(kind, payload)
+        except InputError as exc:
+            self._error, self.reason = str(exc), "error"
+
     def _finish(self) -> None:
+        if self.reason != "error":
+            self._drain()  # while the link is open: a driver then hears how it really ended
         if self.driver is not None:
             try:
                 self.driver.end(self.reason)
@@ -433,14 +447,7 @@ class Watch:
                 self._error = self._error or f"internal error: {type(exc).__name__}: {exc}"
         self.source.stop()
         self._pass_notes()
-        with contextlib.suppress(InputError):
-            while self._error is None and not self.replay:  # a file loses nothing
-                try:
-                    kind, payload = self.source.events.get_nowait()
-                except queue.Empty:
-                    break
-                if kind == "data":
-                    self._handle(kind, payload)
+        self._drain()
         try:
             self.session.close()
         except InputError as exc:
