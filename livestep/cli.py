@@ -200,6 +200,9 @@ def build_parser() -> argparse.ArgumentParser:
                       " pyserial URL (socket://host:port, rfc2217://host:port, loop://)")
     _add_port_options(live)
     _add_record_options(live)
+    live.add_argument("--profile", metavar="TOML",
+                      help="tolerance profile: print each step's verdict (to gate a run on the"
+                      " verdicts, use watch --headless)")
     live.add_argument("--duration", type=_positive, metavar="S",
                       help="stop after S seconds (default: run until Ctrl-C)")
     live.add_argument("--json-lines", action="store_true",
@@ -252,6 +255,9 @@ def build_parser() -> argparse.ArgumentParser:
     demo.add_argument("--format", choices=("text", "binary"), default="text",
                       help="what the virtual bench streams (default text)")
     demo.add_argument("--seed", type=int, default=1, help="noise seed (default 1)")
+    demo.add_argument("--profile", metavar="TOML",
+                      help="judge the steps against this profile (default: the built-in demo"
+                      " spec)")
     demo.add_argument("--json-lines", action="store_true",
                       help="print each step as one JSON object per line")
     demo.add_argument("--console", action="store_true",
@@ -483,7 +489,8 @@ def _live(args: argparse.Namespace) -> int:
     if args.rate:
         print(f"livestep: no device time: samples stamped from their count at {args.rate:g} Hz"
               " (host arrival times come in bursts and are not used)", file=sys.stderr)
-    settings, decoder = _analysis_settings(args), _decoder(args)  # bad options fail first
+    profile = load_profile(args.profile) if args.profile else None
+    settings, decoder = _analysis_settings(args, profile), _decoder(args)  # bad options first
     plan = _plan(args)
     driver = None
     if plan is not None:
@@ -506,7 +513,7 @@ def _live(args: argparse.Namespace) -> int:
         record = Path(args.record or time.strftime("livestep-%Y%m%d-%H%M%S.csv"))
     return run_live(port, decoder, settings, record=record,
                     raw=Path(args.raw) if args.raw else None, duration=args.duration,
-                    json_lines=args.json_lines, driver=driver)
+                    json_lines=args.json_lines, driver=driver, profile=profile)
 
 
 def _plan(args: argparse.Namespace):  # noqa: ANN202 - a Plan or None
@@ -578,7 +585,15 @@ def _watch(args: argparse.Namespace) -> int:
 
 
 def _demo(args: argparse.Namespace) -> int:
-    from livestep.demo import run_demo
+    from livestep.demo import demo_profile, run_demo
+
+    profile = load_profile(args.profile) if args.profile else demo_profile()
+    settings = None
+    if profile.settling_band or profile.rise_levels:
+        default = MeasureSettings()
+        settings = AnalysisSettings(measure=MeasureSettings(
+            rise_levels=profile.rise_levels or default.rise_levels,
+            settling_band=profile.settling_band or default.settling_band))
 
     record = None
     if not args.no_record:
@@ -586,9 +601,10 @@ def _demo(args: argparse.Namespace) -> int:
     if not (args.console or args.json_lines) and sys.stdout.isatty():
         from livestep.tui.app import run_demo_app
 
-        return run_demo_app(quick=args.quick, record=record, fmt=args.format, seed=args.seed)
+        return run_demo_app(quick=args.quick, record=record, fmt=args.format, seed=args.seed,
+                            profile=profile, settings=settings)
     return run_demo(quick=args.quick, record=record, fmt=args.format, seed=args.seed,
-                    json_lines=args.json_lines)
+                    json_lines=args.json_lines, profile=profile, settings=settings)
 
 
 def _sim(args: argparse.Namespace) -> int:

@@ -29,11 +29,13 @@ from livestep.decode.timebase import ClockSettings
 from livestep.live import run_live
 from livestep.plan import Plan, parse_plan
 from livestep.plan_run import PlanRunner
+from livestep.profile import Profile, parse_profile
 from livestep.session import Decoder, make_decoder
 from livestep.sinks.base import Sink
 from livestep.sources.serial_port import PortSettings
 
-__all__ = ["DEMO_PLAN", "demo_bench", "demo_decoder", "demo_plan", "run_demo"]
+__all__ = ["DEMO_PLAN", "DEMO_PROFILE_TOML", "demo_bench", "demo_decoder", "demo_plan",
+           "demo_profile", "run_demo"]
 
 #: The built-in plan: 5 mm moves of the transfer axis, retuned twice (positions in mm; kp
 #: N/mm, ki N/(mm s), kd N s/mm). Invented.
@@ -50,6 +52,18 @@ DEMO_PLAN: dict[str, Any] = {
               {"name": "medium", "kp": 20.0, "ki": 60.0, "kd": 0.2},
               {"name": "firm", "kp": 20.0, "ki": 60.0, "kd": 0.3}],
 }
+#: The spec the demo judges its steps against (invented, like the axis): the soft and
+#: medium gain sets overshoot too much, the firm one meets it.
+DEMO_PROFILE_TOML = """\
+name = "carton transfer axis: demo spec"
+[limits]
+rise_time = { max = 0.040 }                 # seconds
+overshoot_pct = { max = 20, warn = 5 }      # % of the step
+settling_time = { max = 0.600 }             # seconds, +-2 % band
+steady_state_error_pct = { max = 5, warn = 2 }   # % of the setpoint change
+zeta = { min = 0.45 }                       # fitted damping ratio
+"""
+
 #: The gains the axis powers up with (the first set of the plan).
 DEMO_START_GAINS = Gains(**{k: v for k, v in DEMO_PLAN["gains"][0].items() if k != "name"})
 DEMO_RATE = 2000.0  # samples/s
@@ -62,6 +76,11 @@ def demo_plan(quick: bool = False) -> Plan:
     if quick:
         doc.update(dwell=0.5, repeats=1, lead_in=0.3)
     return parse_plan(doc, source="built-in demo plan")
+
+
+def demo_profile() -> Profile:
+    """The built-in demo spec (:data:`DEMO_PROFILE_TOML`)."""
+    return parse_profile(DEMO_PROFILE_TOML, source="built-in demo spec")
 
 
 def demo_bench(*, fmt: str = "text", rate: float = DEMO_RATE, seed: int = 1) -> VirtualBench:
@@ -81,9 +100,10 @@ def demo_decoder() -> Decoder:
 def run_demo(*, quick: bool = False, record: Path | None = None, fmt: str = "text",
              seed: int = 1, json_lines: bool = False, sinks: Sequence[Sink] = (),
              print_steps: bool = True, settings: AnalysisSettings | None = None,
-             stop: threading.Event | None = None) -> int:
-    """Run the demo to the end of its plan (or until ``stop`` is set, from another thread);
-    returns the exit status (0 when the plan ran to its end)."""
+             stop: threading.Event | None = None, profile: Profile | None = None) -> int:
+    """Run the demo to the end of its plan (or until ``stop`` is set, from another thread),
+    judging each step against ``profile`` (default: :func:`demo_profile`); returns the exit
+    status (0 when the plan ran to its end)."""
     bench = demo_bench(fmt=fmt, seed=seed)
     path = bench.start()
     plan = demo_plan(quick)
@@ -95,6 +115,7 @@ def run_demo(*, quick: bool = False, record: Path | None = None, fmt: str = "tex
                         settings if settings is not None else AnalysisSettings(),
                         record=record, json_lines=json_lines, sinks=sinks,
                         print_steps=print_steps, driver=PlanRunner(plan),
-                        source=f"livestep demo (virtual bench on {path})", stop=stop)
+                        source=f"livestep demo (virtual bench on {path})", stop=stop,
+                        profile=profile if profile is not None else demo_profile())
     finally:
         bench.stop()

@@ -22,6 +22,7 @@ from rich.console import Console
 
 from livestep.analysis import AnalysisSettings
 from livestep.errors import EXIT_BAD_INPUT, EXIT_FAIL, EXIT_OK, InputError
+from livestep.profile import Profile
 from livestep.session import AutoDecoder, Decoder, Session, replay_file
 from livestep.sinks.base import Sink
 from livestep.sinks.console import ConsoleSink, JsonLinesSink, counters_table
@@ -50,8 +51,10 @@ def metadata_for(source: str, decoder: Decoder):
     return lambda: {"source": source, "decoder": describe_decoder(decoder)}
 
 
-def _step_sink(json_lines: bool) -> Sink:
-    return JsonLinesSink(sys.stdout) if json_lines else ConsoleSink(Console(highlight=False))
+def _step_sink(json_lines: bool, profile: Profile | None = None) -> Sink:
+    if json_lines:
+        return JsonLinesSink(sys.stdout, profile)
+    return ConsoleSink(Console(highlight=False), profile)
 
 
 @contextlib.contextmanager
@@ -108,16 +111,19 @@ def run_live(port: PortSettings, decoder: Decoder, settings: AnalysisSettings, *
              record: Path | None, raw: Path | None = None, duration: float | None = None,
              json_lines: bool = False, driver: Driver | None = None,
              sinks: Sequence[Sink] = (), print_steps: bool = True,
-             source: str | None = None, stop: threading.Event | None = None) -> int:
-    """Read, decode, record and analyse until stopped (Ctrl-C, SIGTERM, ``duration``, the
-    driver, or ``stop`` set from another thread, e.g. a UI's quit); returns the exit status.
+             source: str | None = None, stop: threading.Event | None = None,
+             profile: Profile | None = None) -> int:
+    """Read, decode, record, analyse (and judge, with a profile) until stopped (Ctrl-C,
+    SIGTERM, ``duration``, the driver, or ``stop`` set from another thread, e.g. a UI's
+    quit); returns the exit status.
     ``sinks`` listen besides the step printer (``print_steps``) and the recorder; ``source``
     names the link in the recording."""
     console = Console(stderr=True, highlight=False)
     name = source or port.url
     watch = Watch(SerialReader(port), decoder, settings, source_name=name, record=record,
                   raw=raw, metadata=metadata_for(name, decoder), driver=driver,
-                  sinks=([_step_sink(json_lines)] if print_steps else []) + list(sinks),
+                  profile=profile,
+                  sinks=([_step_sink(json_lines, profile)] if print_steps else []) + list(sinks),
                   duration=duration)
     watch.session.sinks.insert(0, _Announce(watch, console))
     run_until_done(watch, stop)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import io
+import json
 
 from rich.console import Console
 
@@ -22,3 +23,24 @@ def test_notes_of_one_instant_share_a_line():
     sink.on_note(Note(3.0, "kd", "0.1"))
     sink.close(LinkCounters())
     assert out.getvalue().splitlines()[-1] == "note at 3.000 s: kd=0.1"
+
+
+def test_steps_carry_their_verdict_with_a_profile():
+    from _results import result
+
+    from livestep.profile import parse_profile
+    from livestep.sinks.console import JsonLinesSink
+
+    profile = parse_profile("[limits]\novershoot_pct = { max = 10 }\n")
+    out = io.StringIO()
+    sink = ConsoleSink(Console(file=out, width=300), profile)
+    sink.on_step(result(overshoot_pct=12.0))
+    sink.on_step(result(1, overshoot_pct=4.0))
+    lines = out.getvalue().splitlines()
+    assert lines[0].endswith(": ✘ fail")
+    assert lines[1] == "  ✘ fail: overshoot 12 % (max 10 %): above the maximum 10 %"
+    assert lines[2].startswith("step 1 ") and lines[2].endswith(": ✔ pass") and len(lines) == 3
+    js = io.StringIO()
+    JsonLinesSink(js, profile).on_step(result(overshoot_pct=12.0))
+    rec = json.loads(js.getvalue())
+    assert rec["verdict"] == "fail" and rec["checks"][0]["margin"] == -2.0

@@ -21,6 +21,10 @@ def test_demo_measures_every_planned_step_and_records_them(tmp_path, capsys):
     assert "[gains=soft, kd=0.1, ki=60, kp=20, plan_entry=2, repeat=1, setpoint=5]" \
         in lines[0], lines[0]
     assert "gains=firm" in lines[-1]
+    # each step is judged against the built-in demo spec (overshoot at most 20 %): the soft
+    # set overshoots far past it (more than 50 %) and fails; the firm set does not fail
+    assert lines[0].endswith(": ✘ fail") and lines[1].endswith(": ✘ fail")
+    assert not any(ln.endswith("✘ fail") for ln in lines[4:])
     assert "plan: sent the safe command 'sp 0'" in err
     # the recording reads back offline with the same steps; the device clock wrapped after
     # 3 s of it without breaking the time line

@@ -26,6 +26,7 @@ from textual.widgets import DataTable, Footer, Input, Static
 
 from livestep.analysis import AnalysisSettings
 from livestep.errors import EXIT_OK, InputError
+from livestep.profile import Profile
 from livestep.sources.replay import ReplaySource
 from livestep.tags import parse_notes
 from livestep.tui import views
@@ -431,10 +432,12 @@ class LivestepApp(App[int]):
 
 
 def run_demo_app(*, quick: bool = False, record: Path | None = None, fmt: str = "text",
-                 seed: int = 1, settings: AnalysisSettings | None = None) -> int:
+                 seed: int = 1, settings: AnalysisSettings | None = None,
+                 profile: Profile | None = None) -> int:
     """``livestep demo`` in the terminal UI: the virtual bench on a pty, the built-in plan
-    sent by a plan runner (its progress on the message line), everything else as live."""
-    from livestep.demo import demo_bench, demo_decoder, demo_plan
+    sent by a plan runner (its progress on the message line), each step judged against
+    ``profile`` (default: the built-in demo spec), everything else as live."""
+    from livestep.demo import demo_bench, demo_decoder, demo_plan, demo_profile
     from livestep.live import metadata_for
     from livestep.plan_run import PlanRunner
     from livestep.sources.serial_port import PortSettings, SerialReader
@@ -449,7 +452,7 @@ def run_demo_app(*, quick: bool = False, record: Path | None = None, fmt: str = 
         watch = Watch(SerialReader(PortSettings(url=path)), decoder,
                       settings if settings is not None else AnalysisSettings(),
                       source_name=name, record=record, metadata=metadata_for(name, decoder),
-                      driver=runner)
+                      driver=runner, profile=profile if profile is not None else demo_profile())
         holder.append(watch)
         status = run_app(watch)
         return status if status != EXIT_OK else runner.exit_status
