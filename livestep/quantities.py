@@ -8,7 +8,7 @@ errors are taken as magnitudes here, so one ``max`` limits both signs.
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from livestep.analysis import StepResult
 
@@ -25,6 +25,7 @@ class Quantity:
     ``unreached``: a sentence for a step on which the figure is undefined because the
     response never got there (never rose, never settled): such a step fails a maximum;
     ``None`` when undefined just means "not measured"; ``missing`` then says why.
+    ``short``: a label of at most 10 characters for narrow tables.
     """
 
     name: str
@@ -34,6 +35,7 @@ class Quantity:
     get: Callable[[StepResult], float | None]
     unreached: str | None = None
     missing: str = "not defined for this step"
+    short: str = ""  # a label for narrow tables; see :func:`short_label`
 
 
 def _metric(name: str) -> Callable[[StepResult], float | None]:
@@ -59,8 +61,15 @@ _NO_SETPOINT = "needs the setpoint"
 _NO_MODEL = "no model was fitted"
 
 
+_SHORT = {"rise_time": "rise", "delay_time": "delay", "peak_time": "peak",
+          "overshoot_pct": "overshoot", "undershoot_pct": "undershoot",
+          "settling_time": "settling", "steady_state_error": "|SSE|",
+          "steady_state_error_pct": "|SSE|", "iae": "IAE", "ise": "ISE", "itae": "ITAE",
+          "zeta": "ζ", "wn": "ωn", "dead_time": "dead time", "gain": "gain", "fit_r2": "R²"}
+
+
 def _table(*qs: Quantity) -> dict[str, Quantity]:
-    return {q.name: q for q in qs}
+    return {q.name: replace(q, short=_SHORT[q.name]) for q in qs}
 
 
 #: Every quantity a profile may limit, by name.

@@ -161,14 +161,13 @@ def step_panel(e: StepEntry | None, *, live: bool, narrow: bool = False,
         table.add_column("check", no_wrap=True)
         for c in e.verdict.checks:
             q = QUANTITIES[c.quantity]
-            label = q.label.replace(" (model)", "") if narrow else q.label
-            table.add_row(label, format_value(q, c.value), _limit_text(q, c.low, c.high),
+            table.add_row(q.short, format_value(q, c.value), _limit_text(q, c.low, c.high),
                           "–" if c.margin is None else format_value(q, c.margin),
                           verdict_text(c.verdict))
     else:
         for name in DEFAULT_QUANTITIES:
             q = QUANTITIES[name]
-            table.add_row(q.label, format_value(q, value_of(r, name)))
+            table.add_row(q.short, format_value(q, value_of(r, name)))
     model = Text()
     f = r.model
     if f is None:
