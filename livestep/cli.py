@@ -19,13 +19,13 @@ from livestep.analysis import AnalysisSettings, StepResult, analyze_chunks
 from livestep.decode.text import DELIMITERS, TextFormat
 from livestep.decode.timebase import ClockSettings
 from livestep.detect import DetectorSettings
-from livestep.errors import EXIT_FAIL, EXIT_INTERRUPTED, EXIT_OK, InputError
+from livestep.errors import EXIT_INTERRUPTED, EXIT_OK, InputError
 from livestep.live import run_live, run_replay
 from livestep.measure import MeasureSettings
 from livestep.profile import Profile, load_profile
 from livestep.recording import TIME_UNITS, ColumnMap, RecordingReader, read_ahead
 from livestep.session import Decoder, make_decoder
-from livestep.verdict import StepVerdict
+from livestep.verdict import gate_status, verdict_summary
 
 __all__ = ["main"]
 
@@ -443,20 +443,6 @@ def _compare(args: argparse.Namespace) -> int:
 
         from livestep.report import render_comparison
         render_comparison(cmp, Console())
-    return EXIT_OK
-
-
-def verdict_summary(verdicts: Sequence[str], profile_name: str) -> str:
-    """One line: "profile 'x': 12 steps, 10 pass, 1 warn, 1 fail"."""
-    counts = ", ".join(f"{verdicts.count(v)} {v}" for v in ("pass", "warn", "fail"))
-    return f"profile {profile_name!r}: {len(verdicts)} steps, {counts}"
-
-
-def gate_status(verdicts: Sequence[StepVerdict]) -> int:
-    """Exit status of a judged run: 0 when every step passed (or warned), 1 when any
-    failed or when there was no step to judge."""
-    if not verdicts or any(v.verdict == "fail" for v in verdicts):
-        return EXIT_FAIL
     return EXIT_OK
 
 

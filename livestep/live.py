@@ -27,6 +27,7 @@ from livestep.session import AutoDecoder, Decoder, Session, replay_file
 from livestep.sinks.base import Sink
 from livestep.sinks.console import ConsoleSink, JsonLinesSink, counters_table
 from livestep.sources.serial_port import PortSettings, SerialReader
+from livestep.verdict import gate_status
 from livestep.watch import Driver, StepEntry, Watch, step_line_record
 
 __all__ = ["Driver", "describe_decoder", "metadata_for", "run_headless", "run_live", "run_replay",
@@ -168,8 +169,6 @@ def run_headless(watch: Watch, out: IO[str]) -> int:
         return exit_status(snap.error)
     if watch.profile is None:
         return EXIT_OK
-    from livestep.cli import gate_status
-
     return gate_status([e.verdict for e in snap.steps])
 
 

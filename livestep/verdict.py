@@ -14,15 +14,17 @@ The step's verdict is the worst of its checks: ``fail`` > ``warn`` > ``pass``.
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 
 from livestep.analysis import StepResult
+from livestep.errors import EXIT_FAIL, EXIT_OK
 from livestep.profile import Profile
 from livestep.quantities import QUANTITIES, Quantity
 
 __all__ = ["FAIL", "NOT_MEASURED", "PASS", "SYMBOLS", "WARN", "Check", "StepVerdict",
-           "check_limit", "describe_check", "format_value", "judge", "worst"]
+           "check_limit", "describe_check", "format_value", "gate_status", "judge",
+           "verdict_summary", "worst"]
 
 PASS, WARN, FAIL, NOT_MEASURED = "pass", "warn", "fail", "not measured"
 
@@ -116,3 +118,17 @@ def describe_check(c: Check) -> str:
                       if v is not None)
     text = f"{q.label} {format_value(q, c.value)} ({bounds})"
     return f"{text}: {c.reason}" if c.reason else text
+
+
+def verdict_summary(verdicts: Sequence[str], profile_name: str) -> str:
+    """One line: "profile 'x': 12 steps, 10 pass, 1 warn, 1 fail"."""
+    counts = ", ".join(f"{list(verdicts).count(v)} {v}" for v in (PASS, WARN, FAIL))
+    return f"profile {profile_name!r}: {len(verdicts)} steps, {counts}"
+
+
+def gate_status(verdicts: Sequence[StepVerdict | None]) -> int:
+    """Exit status of a judged run: 0 when every step passed (or warned), 1 when any
+    failed or when there was no step to judge."""
+    if not verdicts or any(v is not None and v.verdict == FAIL for v in verdicts):
+        return EXIT_FAIL
+    return EXIT_OK

@@ -26,12 +26,14 @@ from numpy.typing import NDArray
 
 from livestep.analysis import AnalysisSettings, StepResult
 from livestep.errors import InputError
+from livestep.profile import Profile
 from livestep.samples import SampleChunk
 from livestep.session import Decoder, Session
 from livestep.sinks.base import Sink
 from livestep.sinks.recorder import Recorder
 from livestep.sources.replay import ReplaySource
 from livestep.tags import Note
+from livestep.verdict import StepVerdict, judge
 
 __all__ = ["Driver", "Samples", "Snapshot", "Source", "StepEntry", "Watch",
            "results_log_path"]
@@ -80,7 +82,7 @@ class StepEntry:
     published (``time.monotonic()``)."""
 
     result: StepResult
-    verdict: Any = None
+    verdict: StepVerdict | None = None
     published: float = 0.0
 
 
@@ -209,7 +211,7 @@ class Watch:
     def __init__(self, source: Source, decoder: Decoder, settings: AnalysisSettings, *,
                  source_name: str, record: Path | None = None, raw: Path | None = None,
                  metadata: Callable[[], dict[str, str]] | None = None,
-                 profile: Any = None, sinks: Sequence[Sink] = (),
+                 profile: Profile | None = None, sinks: Sequence[Sink] = (),
                  on_step: Callable[[StepEntry], None] | None = None,
                  duration: float | None = None, max_steps: int | None = None,
                  driver: Driver | None = None, keep_windows: int = 20,
@@ -342,8 +344,6 @@ class Watch:
     def _add_step(self, result: StepResult) -> None:
         verdict = None
         if self.profile is not None:
-            from livestep.verdict import judge
-
             verdict = judge(result, self.profile)
         entry = StepEntry(result, verdict, time.monotonic())
         if self._log is None and self.results_log is not None:

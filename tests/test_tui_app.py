@@ -95,7 +95,7 @@ def test_steps_appear_with_their_verdicts(tmp_path):
     app = replay_app(tmp_path)
 
     async def script(pilot) -> None:
-        await until(pilot, lambda: app._rows == 8 and app.watch.done)
+        await until(pilot, lambda: app._rows == 8 and app.link.done)
         await pilot.pause()
         # Closed-form overshoot (Ogata) of the demo's damping ratios against the 20 %
         # maximum: zeta 0.35 -> 30.9 % fails, 0.5 and up (16.3 % and less) pass.
@@ -154,16 +154,16 @@ def test_replay_pause_speed_and_resume(tmp_path):
     app = replay_app(tmp_path, speed=1.0)
 
     async def script(pilot) -> None:
-        await until(pilot, lambda: app.watch.snapshot().counters["samples"] > 0)
+        await until(pilot, lambda: app.link.snapshot().counters["samples"] > 0)
         await pilot.press("space")
         await until(pilot, lambda: "⏸ replay paused" in link(app))
         await pilot.press("plus")
-        assert app.watch.snapshot().speed == 2.0
+        assert app.link.snapshot().speed == 2.0
         await pilot.press("minus", "minus")
-        assert app.watch.snapshot().speed == 0.5
+        assert app.link.snapshot().speed == 0.5
         await pilot.press("space")
         await until(pilot, lambda: "replay paused" not in link(app))
-        assert not app.watch.source.paused
+        assert not app.link.source.paused
 
     drive(app, script)
 
@@ -173,16 +173,16 @@ def test_disconnected_state_shows_when_the_pty_closes(tmp_path):
     app = pty_app(dev, tmp_path)
 
     async def script(pilot) -> None:
-        await until(pilot, lambda: app.watch.snapshot().state == "waiting for data")
+        await until(pilot, lambda: app.link.snapshot().state == "waiting for data")
         data = device_lines([0.0, 1.0], hold=0.3)
         dev.write(data[: len(data) // 2])
         await until(pilot, lambda: "▶ streaming" in link(app))
         await pilot.press("space")  # live, the view holds still while recording goes on
         assert app.message == "view paused: recording and measuring go on"
         held = app.query_one(StepPlotView).plot
-        samples = app.watch.snapshot().counters["samples"]
+        samples = app.link.snapshot().counters["samples"]
         dev.write(data[len(data) // 2:])
-        await until(pilot, lambda: app.watch.snapshot().counters["samples"] > samples)
+        await until(pilot, lambda: app.link.snapshot().counters["samples"] > samples)
         await pilot.pause()
         assert app.query_one(StepPlotView).plot is held
         await pilot.press("space")
@@ -203,10 +203,10 @@ def test_a_note_tags_the_following_steps(tmp_path):
     half = data.index(b"\n", len(data) // 2) + 1  # inside the third hold: 2 steps closed
 
     async def script(pilot) -> None:
-        await until(pilot, lambda: app.watch.snapshot().state == "waiting for data")
+        await until(pilot, lambda: app.link.snapshot().state == "waiting for data")
         dev.write(data[:half])
         n_first = data[:half].count(b"\n") - 2
-        await until(pilot, lambda: app.watch.snapshot().counters["samples"] == n_first)
+        await until(pilot, lambda: app.link.snapshot().counters["samples"] == n_first)
         await pilot.press("n")
         assert isinstance(app.screen, NoteScreen)
         await pilot.press(*"gains=B", "enter")
@@ -214,8 +214,8 @@ def test_a_note_tags_the_following_steps(tmp_path):
         assert app.message.startswith("note gains=B tags the steps from")
         await asyncio.to_thread(write_paced, dev, data[half:], 400_000)
         await until(pilot, lambda: app._rows == 3)
-        note_t = app.watch.snapshot().notes[0].t
-        steps = app.watch.snapshot().steps
+        note_t = app.link.snapshot().notes[0].t
+        steps = app.link.snapshot().steps
         for k, e in enumerate(steps):
             tagged = e.result.metrics.t_step >= note_t
             assert cell(app, k, 7) == ("gains=B" if tagged else "")
@@ -231,7 +231,7 @@ def test_narrow_terminal_shows_the_verdict_and_key_numbers(tmp_path):
     app = replay_app(tmp_path)
 
     async def script(pilot) -> None:
-        await until(pilot, lambda: app._rows == 8 and app.watch.done)
+        await until(pilot, lambda: app._rows == 8 and app.link.done)
         await pilot.press("left")  # step 6: zeta 0.9, rise 116 ms
         await pilot.pause()
         text = screen_text(app)
@@ -252,7 +252,7 @@ def test_main_screen_snapshot(tmp_path, monkeypatch):
     monkeypatch.setattr(views, "design_sentence", lambda *a: "(design guidance sentence)")
 
     async def script(pilot) -> None:
-        await until(pilot, lambda: app._rows == 8 and app.watch.done)
+        await until(pilot, lambda: app._rows == 8 and app.link.done)
         await pilot.press("left", "left", "left", "left")
         await pilot.pause()
         text = screen_text(app)

@@ -174,7 +174,7 @@ class LivestepApp(App[int]):
                  quit_on_sigterm: bool = False) -> None:
         super().__init__()
         self.quit_on_sigterm = quit_on_sigterm
-        self.watch = watch
+        self.link = watch
         self.report_folder = report_folder or Path.cwd()
         self.selected: int | None = None  # index into the history; None: follow live
         self.paused = False
@@ -218,8 +218,8 @@ class LivestepApp(App[int]):
         table = self.query_one(History)
         for name in views.HISTORY_COLUMNS:
             table.add_column(name, key=name)
-        if not self.watch.started:
-            self.watch.start()
+        if not self.link.started:
+            self.link.start()
         if self.quit_on_sigterm:  # SIGTERM ends the session as cleanly as q
             with contextlib.suppress(NotImplementedError, RuntimeError):
                 asyncio.get_running_loop().add_signal_handler(signal.SIGTERM, self.exit)
@@ -227,8 +227,8 @@ class LivestepApp(App[int]):
         self.frame()
 
     def on_unmount(self) -> None:
-        self.watch.stop()
-        self.watch.wait(5.0)
+        self.link.stop()
+        self.link.wait(5.0)
 
     @property
     def narrow(self) -> bool:
@@ -237,7 +237,7 @@ class LivestepApp(App[int]):
     # -- the frame --------------------------------------------------------------
     def frame(self) -> None:
         """Pull one snapshot and update what changed."""
-        snap = self.watch.snapshot()
+        snap = self.link.snapshot()
         self.snap = snap
         self.frames += 1
         try:
@@ -279,8 +279,8 @@ class LivestepApp(App[int]):
         if key != self._shown:
             self._shown = key
             guidance = "" if entry is None else views.design_sentence(
-                entry.result, self.watch.profile,
-                self.watch.session.settings.measure.settling_band)
+                entry.result, self.link.profile,
+                self.link.session.settings.measure.settling_band)
             self.query_one("#panel", Static).update(
                 views.step_panel(entry, live=live, narrow=self.narrow, guidance=guidance))
         plot_key = (key, self.show_model, snap.data_time if live else None,
@@ -289,7 +289,7 @@ class LivestepApp(App[int]):
             return  # nothing new to draw (or the live view holds still)
         self._plotted = plot_key
         plot = self.query_one(StepPlotView)
-        measure = self.watch.session.settings.measure
+        measure = self.link.session.settings.measure
         if not live:
             w = entry.result.window if entry is not None else None
             if w is None:
@@ -309,7 +309,7 @@ class LivestepApp(App[int]):
         if entry is not None:
             start = max(entry.result.metrics.t_step - 0.1 * (end - entry.result.metrics.t_step),
                         end - self.LIVE_SPAN)
-        samples = self.watch.samples(since=start)
+        samples = self.link.samples(since=start)
         plot.show(views.step_plot(samples, entry, measure, x_range=(start, end),
                                   model=self.show_model, narrow=self.narrow))
 
@@ -360,7 +360,7 @@ class LivestepApp(App[int]):
         self._select(event.cursor_row)
 
     def action_pause(self) -> None:
-        src = self.watch.source
+        src = self.link.source
         if isinstance(src, ReplaySource):
             if src.paused:
                 src.resume()
@@ -375,7 +375,7 @@ class LivestepApp(App[int]):
                  else "view follows the stream again")
 
     def _speed(self, factor: float) -> None:
-        src = self.watch.source
+        src = self.link.source
         if not isinstance(src, ReplaySource):
             self.say("speed applies to a replay only")
             return
@@ -409,7 +409,7 @@ class LivestepApp(App[int]):
             return
         pairs = parse_notes(text) or [("note", text.strip())]
         try:
-            notes = [self.watch.add_note(name, value) for name, value in pairs]
+            notes = [self.link.add_note(name, value) for name, value in pairs]
         except InputError as exc:
             self.say(str(exc))
             return
@@ -422,7 +422,7 @@ class LivestepApp(App[int]):
         self.run_worker(self._save, thread=True, exclusive=True, exit_on_error=False)
 
     def _save(self) -> None:
-        self.call_from_thread(self.say, save_report(self.watch, self.report_folder))
+        self.call_from_thread(self.say, save_report(self.link, self.report_folder))
 
     def action_help(self) -> None:
         self.push_screen(HelpScreen())

@@ -8,7 +8,6 @@ is tested without an app.
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 from rich.console import Group, RenderableType
@@ -18,7 +17,8 @@ from rich.text import Text
 from livestep.analysis import StepResult
 from livestep.design import SHORT_ASSUMPTION, assess, design_region
 from livestep.measure import MeasureSettings
-from livestep.quantities import QUANTITIES, value_of
+from livestep.profile import Profile
+from livestep.quantities import QUANTITIES, Quantity, value_of
 from livestep.second_order import step_response
 from livestep.tui.plot import HLine, Marker, Plot, Trace
 from livestep.verdict import FAIL, NOT_MEASURED, PASS, SYMBOLS, WARN, format_value
@@ -111,7 +111,7 @@ def history_row(e: StepEntry) -> tuple[Text | str, ...]:
 HISTORY_COLUMNS = ("#", "t step s", "verdict", "rise ms", "OS %", "settle ms", "ζ", "tags")
 
 
-def _limit_text(q: Any, low: float | None, high: float | None) -> str:
+def _limit_text(q: Quantity, low: float | None, high: float | None) -> str:
     if low is not None and high is not None:
         return f"{format_value(q, low)} … {format_value(q, high)}"
     if high is not None:
@@ -121,7 +121,7 @@ def _limit_text(q: Any, low: float | None, high: float | None) -> str:
     return "–"
 
 
-def design_sentence(result: StepResult, profile: Any, band_pct: float) -> str:
+def design_sentence(result: StepResult, profile: Profile | None, band_pct: float) -> str:
     """The design-guidance sentence for a step (:mod:`livestep.design`): where the profile
     wants the dominant poles against the step's fitted model, the requirement missed by
     most first. ``band_pct``: the settling band, +- % of the amplitude."""
@@ -206,8 +206,8 @@ def overlays(r: StepResult, measure: MeasureSettings, *,
     marks: list[Marker] = []
     if m.rise_time is not None:
         t_lo = None
-        if getattr(m, "rise_start", None) is not None:  # measured, where the build has it
-            t_lo = m.t_step + m.rise_start  # type: ignore[attr-defined]
+        if m.rise_start is not None:  # measured
+            t_lo = m.t_step + m.rise_start
         elif feedback is not None:  # else the raw samples' first crossing of the low level
             t, y = feedback
             after = t >= m.t_step
