@@ -210,14 +210,16 @@ def test_each_level_gets_its_whole_dwell_even_after_a_late_command():
 
 
 def test_safe_command_on_an_error():
-    # the stream cannot be read as configured (no column 'zz'): the session ends with
+    # the stream cannot be read as configured (no column 'zz' among the given names, so
+    # whether or not the header was caught): the session ends with
     # status 2 and the safe command still goes out, once
     from livestep.decode.text import TextFormat
 
     with bench() as b:
         runner = PlanRunner(a_plan(), out=lambda _: None)
         status = run_live(PortSettings(url=b.path),
-                          make_decoder("text", text=TextFormat(time="zz"), clock=US32),
+                          make_decoder("text", text=TextFormat(names=("t", "setpoint", "feedback"),
+                                                      time="zz"), clock=US32),
                           AnalysisSettings(), record=None, driver=runner, print_steps=False)
         time.sleep(0.1)
     assert status == 2 and runner.outcome == "error"
