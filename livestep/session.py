@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import gzip
 import time
+from collections import deque
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import replace
 from pathlib import Path
@@ -114,14 +115,17 @@ def make_decoder(kind: str = "auto", *, text: TextFormat | None = None,
 
 class Session:
     """Feed bytes with :meth:`feed`; :meth:`close` at the end. ``results`` keeps every
-    step; sinks hear about everything as it happens."""
+    step, or the last ``keep_results`` (an endless live stream); ``published`` counts
+    them all; sinks hear about everything as it happens."""
 
     def __init__(self, decoder: Decoder, settings: AnalysisSettings | None = None,
-                 sinks: Sequence[Sink] = ()) -> None:
+                 sinks: Sequence[Sink] = (), *, keep_results: int | None = None) -> None:
         self.decoder = decoder
         self.settings = settings if settings is not None else AnalysisSettings()
         self.sinks = list(sinks)
-        self.results: list[StepResult] = []
+        self.results: list[StepResult] | deque[StepResult] = (
+            [] if keep_results is None else deque(maxlen=keep_results))
+        self.published = 0
         self.last_t: float | None = None
         self.first_t: float | None = None
         self._analyzer: StepAnalyzer | None = None
@@ -216,10 +220,11 @@ class Session:
 
     def _publish(self, results: list[StepResult]) -> list[StepResult]:
         """Number the steps across segments (each has its own detector) and hand them on."""
-        out = [replace(r, index=len(self.results) + k,
+        out = [replace(r, index=self.published + k,
                        tags=self.notes.active_at(r.metrics.t_step))
                for k, r in enumerate(results)]
         self.results += out
+        self.published += len(out)
         for r in out:
             for s in self.sinks:
                 s.on_step(r)

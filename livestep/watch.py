@@ -244,8 +244,10 @@ class Watch:
         self.results_log: Path | None = None
         self._log: IO[str] | None = None
         self._record = (record, raw, metadata or (lambda: {"source": source_name}))
+        # The session keeps only the recent steps (with their samples); the full list of
+        # step summaries is ``_entries``, for the history, the report and the summary.
         self.session = Session(decoder, replace(settings, keep_windows=True),
-                               [_Collector(self), *sinks])
+                               [_Collector(self), *sinks], keep_results=keep_windows)
         if isinstance(source, ReplaySource):
             source.progress = self._progress
 
@@ -360,9 +362,6 @@ class Watch:
                 e = self._entries[old]
                 self._entries[old] = replace(e, result=replace(e.result, window=None))
             self._version += 1
-        res = self.session.results
-        if len(res) > self.keep_windows and res[-self.keep_windows - 1].window is not None:
-            res[-self.keep_windows - 1] = replace(res[-self.keep_windows - 1], window=None)
         if self.on_step is not None:
             self.on_step(entry)
         if self.max_steps is not None and len(self._entries) >= self.max_steps:

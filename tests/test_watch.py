@@ -88,7 +88,10 @@ def test_memory_stays_bounded():
     steps = watch.snapshot().steps
     assert len(steps) == 8
     assert [e.result.window is not None for e in steps] == [False] * 5 + [True] * 3
-    assert sum(r.window is not None for r in watch.session.results) == 3
+    # the session itself keeps only the recent steps, numbered on across the dropped ones
+    assert [r.window is not None for r in watch.session.results] == [True] * 3
+    assert watch.session.published == 8
+    assert [e.result.index for e in steps] == list(range(8))
     recent = watch.samples(count=10**6)
     assert recent.t.size == 1000 and recent.t[-1] == pytest.approx(17.9995, abs=1e-3)
 
@@ -226,7 +229,7 @@ class PlanDouble:
         link.write(b"sp 1\n")
 
     def poll(self) -> bool:
-        return len(self.session.results) >= 2
+        return self.session.published >= 2
 
     def on_state(self, state: str) -> None:
         self.calls.append(state)
