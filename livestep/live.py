@@ -52,10 +52,8 @@ def metadata_for(source: str, decoder: Decoder):
     return lambda: {"source": source, "decoder": describe_decoder(decoder)}
 
 
-def _step_sink(json_lines: bool, profile: Profile | None = None) -> Sink:
-    if json_lines:
-        return JsonLinesSink(sys.stdout, profile)
-    return ConsoleSink(Console(highlight=False), profile)
+def _step_sink(json_lines: bool) -> Sink:
+    return JsonLinesSink(sys.stdout) if json_lines else ConsoleSink(Console(highlight=False))
 
 
 @contextlib.contextmanager
@@ -124,7 +122,7 @@ def run_live(port: PortSettings, decoder: Decoder, settings: AnalysisSettings, *
     watch = Watch(SerialReader(port), decoder, settings, source_name=name, record=record,
                   raw=raw, metadata=metadata_for(name, decoder), driver=driver,
                   profile=profile,
-                  sinks=([_step_sink(json_lines, profile)] if print_steps else []) + list(sinks),
+                  sinks=([_step_sink(json_lines)] if print_steps else []) + list(sinks),
                   duration=duration)
     watch.session.sinks.insert(0, _Announce(watch, console))
     run_until_done(watch, stop)

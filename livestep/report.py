@@ -50,8 +50,8 @@ def check_records(v: StepVerdict) -> list[dict[str, Any]]:
 
 
 def step_record(r: StepResult, verdict: StepVerdict | None = None) -> dict[str, Any]:
-    """One step as the JSON contract's dict (``None`` where undefined); with a verdict,
-    ``verdict`` and ``checks`` too."""
+    """One step as the JSON contract's dict (``None`` where undefined); with a verdict
+    (given, or the step's own), ``verdict`` and ``checks`` too."""
     m = r.metrics
     rec: dict[str, Any] = {"index": r.index}
     rec.update({k: _clean(getattr(m, k)) for k in STEP_FIELDS[1:]})
@@ -62,6 +62,7 @@ def step_record(r: StepResult, verdict: StepVerdict | None = None) -> dict[str, 
     rec["window_end"] = r.end_reason
     rec["warnings"] = list(r.warnings)
     rec["tags"] = dict(r.tags)
+    verdict = verdict if verdict is not None else r.verdict
     if verdict is not None:
         rec["verdict"] = verdict.verdict
         rec["checks"] = check_records(verdict)

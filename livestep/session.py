@@ -21,9 +21,11 @@ from livestep.analysis import AnalysisSettings, StepAnalyzer, StepResult
 from livestep.decode.counters import LinkCounters
 from livestep.decode.text import TextDecoder, TextFormat
 from livestep.decode.timebase import ClockSettings
+from livestep.profile import Profile
 from livestep.samples import SampleChunk
 from livestep.sinks.base import Sink
 from livestep.tags import Note, NoteTimeline
+from livestep.verdict import judge
 
 __all__ = ["AutoDecoder", "Decoder", "Session", "Sink", "make_decoder", "replay_file"]
 
@@ -116,11 +118,14 @@ def make_decoder(kind: str = "auto", *, text: TextFormat | None = None,
 class Session:
     """Feed bytes with :meth:`feed`; :meth:`close` at the end. ``results`` keeps every
     step, or the last ``keep_results`` (an endless live stream); ``published`` counts
-    them all; sinks hear about everything as it happens."""
+    them all; with a ``profile`` every step is judged (``StepResult.verdict``) before the
+    sinks hear of it; sinks hear about everything as it happens."""
 
     def __init__(self, decoder: Decoder, settings: AnalysisSettings | None = None,
-                 sinks: Sequence[Sink] = (), *, keep_results: int | None = None) -> None:
+                 sinks: Sequence[Sink] = (), *, keep_results: int | None = None,
+                 profile: Profile | None = None) -> None:
         self.decoder = decoder
+        self.profile = profile
         self.settings = settings if settings is not None else AnalysisSettings()
         self.sinks = list(sinks)
         self.results: list[StepResult] | deque[StepResult] = (
@@ -223,6 +228,8 @@ class Session:
         out = [replace(r, index=self.published + k,
                        tags=self.notes.active_at(r.metrics.t_step))
                for k, r in enumerate(results)]
+        if self.profile is not None:  # after tagging: a profile's rules may match tags
+            out = [replace(r, verdict=judge(r, self.profile)) for r in out]
         self.results += out
         self.published += len(out)
         for r in out:

@@ -33,7 +33,7 @@ from livestep.sinks.base import Sink
 from livestep.sinks.recorder import Recorder
 from livestep.sources.replay import ReplaySource
 from livestep.tags import Note
-from livestep.verdict import StepVerdict, judge
+from livestep.verdict import StepVerdict
 
 __all__ = ["Driver", "Samples", "Snapshot", "Source", "StepEntry", "Watch",
            "results_log_path"]
@@ -82,8 +82,11 @@ class StepEntry:
     published (``time.monotonic()``)."""
 
     result: StepResult
-    verdict: StepVerdict | None = None
     published: float = 0.0
+
+    @property
+    def verdict(self) -> StepVerdict | None:
+        return self.result.verdict
 
 
 @dataclass(frozen=True)
@@ -174,7 +177,7 @@ def step_line_record(entry: StepEntry) -> dict[str, Any]:
     tags, and its verdict and checks when there is a profile)."""
     from livestep.report import step_record
 
-    return step_record(entry.result, entry.verdict)
+    return step_record(entry.result)
 
 
 class _Collector(Sink):
@@ -247,7 +250,8 @@ class Watch:
         # The session keeps only the recent steps (with their samples); the full list of
         # step summaries is ``_entries``, for the history, the report and the summary.
         self.session = Session(decoder, replace(settings, keep_windows=True),
-                               [_Collector(self), *sinks], keep_results=keep_windows)
+                               [_Collector(self), *sinks], keep_results=keep_windows,
+                               profile=profile)
         if isinstance(source, ReplaySource):
             source.progress = self._progress
 
@@ -344,10 +348,7 @@ class Watch:
         return STREAMING
 
     def _add_step(self, result: StepResult) -> None:
-        verdict = None
-        if self.profile is not None:
-            verdict = judge(result, self.profile)
-        entry = StepEntry(result, verdict, time.monotonic())
+        entry = StepEntry(result, time.monotonic())
         if self._log is None and self.results_log is not None:
             self._log = self.results_log.open("a", encoding="utf-8")
         if self._log is not None:

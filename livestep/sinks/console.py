@@ -10,10 +10,9 @@ from rich.table import Table
 
 from livestep.analysis import StepResult
 from livestep.decode.counters import LinkCounters
-from livestep.profile import Profile
 from livestep.sinks.base import Sink
 from livestep.tags import Note
-from livestep.verdict import SYMBOLS, describe_check, judge
+from livestep.verdict import SYMBOLS, describe_check
 
 __all__ = ["ConsoleSink", "JsonLinesSink", "counters_table", "step_line"]
 
@@ -48,22 +47,20 @@ def counters_table(c: LinkCounters) -> Table:
 
 
 class ConsoleSink(Sink):
-    """Prints each step (with a profile, its verdict and the checks that did not pass),
+    """Prints each step (judged: its verdict and the checks that did not pass),
     each state change and the notes (those stamped at one instant on one line)."""
 
-    def __init__(self, console: Console, profile: Profile | None = None) -> None:
+    def __init__(self, console: Console) -> None:
         self.console = console
-        self.profile = profile
         self._notes: list[Note] = []
 
     def on_step(self, result: StepResult) -> None:
         self._print_notes()
-        line = step_line(result)
-        if self.profile is not None:
-            v = judge(result, self.profile)
+        line, v = step_line(result), result.verdict
+        if v is not None:
             line = f"{line}: {SYMBOLS[v.verdict]} {v.verdict}"
         self.console.print(line, highlight=False, markup=False, soft_wrap=True)
-        if self.profile is not None:
+        if v is not None:
             for c in v.checks:
                 if c.verdict != "pass":
                     self.console.print(f"  {SYMBOLS[c.verdict]} {c.verdict}: "
@@ -96,15 +93,13 @@ class ConsoleSink(Sink):
 
 class JsonLinesSink(Sink):
     """Writes each step as one JSON object per line (the step shape of ``analyze --json``,
-    with ``verdict`` and ``checks`` when there is a profile)."""
+    with ``verdict`` and ``checks`` when the step was judged)."""
 
-    def __init__(self, out: IO[str], profile: Profile | None = None) -> None:
+    def __init__(self, out: IO[str]) -> None:
         self.out = out
-        self.profile = profile
 
     def on_step(self, result: StepResult) -> None:
         from livestep.report import step_record
 
-        verdict = None if self.profile is None else judge(result, self.profile)
-        self.out.write(json.dumps(step_record(result, verdict), allow_nan=False) + "\n")
+        self.out.write(json.dumps(step_record(result), allow_nan=False) + "\n")
         self.out.flush()
