@@ -68,16 +68,21 @@ def _add_analysis_options(p: argparse.ArgumentParser) -> None:
     m.add_argument("--no-fit", action="store_true", help="skip the second-order model fit")
 
 
-def _analysis_settings(args: argparse.Namespace,
-                       profile: Profile | None = None) -> AnalysisSettings:
+def _measure_settings(profile: Profile | None, band: float | None = None,
+                      levels: tuple[float, float] | None = None) -> MeasureSettings:
     """Options first, then the profile's settling band and rise levels, then defaults."""
     default = MeasureSettings()
-    band = args.settling_band or (profile and profile.settling_band) or default.settling_band
-    levels = args.rise_levels or (profile and profile.rise_levels) or default.rise_levels
+    return MeasureSettings(
+        rise_levels=levels or (profile and profile.rise_levels) or default.rise_levels,
+        settling_band=band or (profile and profile.settling_band) or default.settling_band)
+
+
+def _analysis_settings(args: argparse.Namespace,
+                       profile: Profile | None = None) -> AnalysisSettings:
     try:
         return AnalysisSettings(
             detect=DetectorSettings(min_step=args.min_step, max_window=args.max_window),
-            measure=MeasureSettings(rise_levels=levels, settling_band=band),
+            measure=_measure_settings(profile, args.settling_band, args.rise_levels),
             fit_model=not args.no_fit)
     except ValueError as exc:
         raise InputError(str(exc)) from None
@@ -574,12 +579,7 @@ def _demo(args: argparse.Namespace) -> int:
     from livestep.demo import demo_profile, run_demo
 
     profile = load_profile(args.profile) if args.profile else demo_profile()
-    settings = None
-    if profile.settling_band or profile.rise_levels:
-        default = MeasureSettings()
-        settings = AnalysisSettings(measure=MeasureSettings(
-            rise_levels=profile.rise_levels or default.rise_levels,
-            settling_band=profile.settling_band or default.settling_band))
+    settings = AnalysisSettings(measure=_measure_settings(profile))
 
     record = None
     if not args.no_record:
@@ -614,17 +614,17 @@ def _sim(args: argparse.Namespace) -> int:
     print(f"livestep sim: {args.plant} plant streaming {args.format} at {args.rate:g} Hz on"
           f" {path}; commands: sp VALUE, gains kp=X ki=Y kd=Z, stream on|off, status;"
           " Ctrl-C ends", file=sys.stderr, flush=True)
-    import signal
     import threading
 
+    from livestep.live import stop_on_sigterm
+
     done = threading.Event()
-    previous = signal.signal(signal.SIGTERM, lambda *_: done.set())
     try:
-        done.wait(args.duration)
+        with stop_on_sigterm(done):
+            done.wait(args.duration)
     except KeyboardInterrupt:
         pass
     finally:
-        signal.signal(signal.SIGTERM, previous)
         bench.stop()
     return EXIT_OK
 

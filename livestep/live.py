@@ -31,7 +31,7 @@ from livestep.verdict import gate_status
 from livestep.watch import Driver, StepEntry, Watch, step_line_record
 
 __all__ = ["Driver", "describe_decoder", "metadata_for", "run_headless", "run_live", "run_replay",
-           "run_until_done"]
+           "run_until_done", "stop_on_sigterm"]
 
 
 def describe_decoder(decoder: Decoder) -> str:
@@ -57,7 +57,8 @@ def _step_sink(json_lines: bool) -> Sink:
 
 
 @contextlib.contextmanager
-def _stop_on_sigterm(stop: threading.Event):
+def stop_on_sigterm(stop: threading.Event):  # noqa: ANN201 - a context manager
+    """While inside, SIGTERM sets ``stop`` (a no-op off the main thread)."""
     try:
         previous = signal.signal(signal.SIGTERM, lambda *_: stop.set())
     except ValueError:  # not the main thread
@@ -75,7 +76,7 @@ def run_until_done(watch: Watch, stop: threading.Event | None = None) -> None:
     stop = stop if stop is not None else threading.Event()
     watch.start()
     try:
-        with _stop_on_sigterm(stop):
+        with stop_on_sigterm(stop):
             while not watch.wait(0.1):
                 if stop.is_set():
                     watch.stop()
