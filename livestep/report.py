@@ -115,6 +115,12 @@ def _num(x: float | None, fmt: str = ".4g") -> str:
     return "-" if x is None else format(x, fmt)
 
 
+def _compact_table(title: str, caption: str) -> Table:
+    """The terminal tables' common look: a rule under the header, no outer edge."""
+    return Table(title=title, caption=caption, box=box.SIMPLE_HEAD, pad_edge=False,
+                 header_style="bold", padding=(0, 1), collapse_padding=True, show_edge=False)
+
+
 #: Verdict styles; the symbol and word always go with the colour.
 VERDICT_STYLES = {"pass": "green", "warn": "yellow", "fail": "bold red",
                   "not measured": "dim"}
@@ -129,10 +135,8 @@ def render_table(results: Sequence[StepResult], console: Console, title: str,
                  verdicts: Sequence[StepVerdict] | None = None) -> None:
     """A rich table, one row per step, times in milliseconds (all figures: ``--json``);
     with verdicts, a verdict column and one line per check that did not pass."""
-    table = Table(title=title, box=box.SIMPLE_HEAD, pad_edge=False, header_style="bold",
-                  padding=(0, 1), collapse_padding=True, show_edge=False,
-                  caption="t_step in s; rise, settle, dead (time) in ms; OS (overshoot) and SSE"
-                  " (steady-state error) in %; wn in rad/s")
+    table = _compact_table(title, "t_step in s; rise, settle, dead (time) in ms; OS (overshoot)"
+                           " and SSE (steady-state error) in %; wn in rad/s")
     names = ["#", "t_step", "dir", "amp", "rise", "OS", "settle", "SSE", "zeta", "wn", "dead"]
     # The verdict takes the place of R^2 (still in --json), so 80 columns hold the table.
     for name in names + (["R^2"] if verdicts is None else []):
@@ -228,9 +232,7 @@ def render_statistics(groups: Sequence[GroupStats], console: Console) -> None:
                " groups: --json")
     if limited:
         caption += "; Cpk = min(USL - mean, mean - LSL) / 3s, one-sided with one limit"
-    table = Table(title=f"statistics over {len(every.steps)} steps", box=box.SIMPLE_HEAD,
-                  pad_edge=False, header_style="bold", padding=(0, 1), collapse_padding=True,
-                  show_edge=False, caption=caption)
+    table = _compact_table(f"statistics over {len(every.steps)} steps", caption)
     table.add_column("", no_wrap=True)
     table.add_column("unit", no_wrap=True)
     for name in ("n", "mean", "s", "min", "max", *(("limits", "Cpk") if limited else ())):
@@ -248,16 +250,12 @@ def render_statistics(groups: Sequence[GroupStats], console: Console) -> None:
     if len(groups) < 2:
         return
     cols = [q for q in GROUP_COLUMNS if every.get(q) is not None]
-    short = {"rise_time": "rise", "overshoot_pct": "OS", "settling_time": "settle",
-             "steady_state_error_pct": "SSE", "zeta": "zeta", "wn": "wn"}
-    by_group = Table(title="mean per group", box=box.SIMPLE_HEAD, pad_edge=False,
-                     header_style="bold", padding=(0, 1), collapse_padding=True,
-                     show_edge=False, caption="rise, settle in ms; OS, SSE in %; wn in rad/s;"
-                     " size: decade of |setpoint change|")
+    by_group = _compact_table("mean per group", "rise, settle in ms; OS, SSE in %; wn in"
+                              " rad/s; size: decade of |setpoint change|")
     by_group.add_column("group")
     by_group.add_column("steps", justify="right")
     for q in cols:
-        by_group.add_column(short[q], justify="right", no_wrap=True)
+        by_group.add_column(STATISTICS_ROWS[q], justify="right", no_wrap=True)
     for g in groups[1:]:
         by_group.add_row(f"{g.by} {g.key}", str(len(g.steps)),
                          *(_shown(q, g.get(q).mean, ".3g") for q in cols))
@@ -326,12 +324,11 @@ def comparison_document(cmp: Comparison) -> dict[str, Any]:
 
 def render_comparison(cmp: Comparison, console: Console) -> None:
     """One row per quantity: mean A, mean B, the change and whether it is better."""
-    table = Table(title=escape(f"A: {cmp.a_label} ({cmp.a_steps} steps)  vs  B: {cmp.b_label}"
-                               f" ({cmp.b_steps} steps)"), box=box.SIMPLE_HEAD, pad_edge=False,
-                  header_style="bold", padding=(0, 1), collapse_padding=True,
-                  show_edge=False, caption=f"{_UNIT_CAPTION}; change = B - A; p: Welch's"
-                  " t-test of the two means; ~ better? / ~ worse?: p >= 0.05, the change may"
-                  " be step-to-step scatter")
+    table = _compact_table(escape(f"A: {cmp.a_label} ({cmp.a_steps} steps)  vs  B:"
+                                  f" {cmp.b_label} ({cmp.b_steps} steps)"),
+                           f"{_UNIT_CAPTION}; change = B - A; p: Welch's t-test of the two"
+                           " means; ~ better? / ~ worse?: p >= 0.05, the change may be"
+                           " step-to-step scatter")
     table.add_column("quantity", no_wrap=True, min_width=22)
     table.add_column("unit", no_wrap=True)
     for name in ("A mean", "B mean", "change", "p", "B is"):
