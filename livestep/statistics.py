@@ -132,22 +132,20 @@ def _sort_key(by: str, key: str) -> tuple[float, str]:
     return (0.0, key)
 
 
-def _limits(results: Sequence[StepResult], profile: Profile | None,
-            quantity: str) -> tuple[float | None, float | None]:
+_Bounds = dict[str, tuple[float | None, float | None]]  # quantity -> (low, high)
+
+
+def _limits(bounds: Sequence[_Bounds], quantity: str) -> tuple[float | None, float | None]:
     """The limits every step of the group shares on ``quantity`` (none if they differ)."""
-    if profile is None or not results:
-        return None, None
-    found = set()
-    for r in results:
-        lim = next((x for x in profile.limits_for(r) if x.quantity == quantity), None)
-        found.add((None, None) if lim is None else (lim.low, lim.high))
+    found = {b.get(quantity, (None, None)) for b in bounds}
     return found.pop() if len(found) == 1 else (None, None)
 
 
 def _group(by: str, key: str, results: Sequence[StepResult], names: Sequence[str],
-           profile: Profile | None) -> GroupStats:
+           limits: dict[int, _Bounds] | None) -> GroupStats:
+    bounds = [limits[r.index] for r in results] if limits is not None else []
     metrics = tuple(metric_stats(q, (QUANTITIES[q].get(r) for r in results),
-                                 *_limits(results, profile, q)) for q in names)
+                                 *_limits(bounds, q)) for q in names)
     return GroupStats(by, key, tuple(r.index for r in results), metrics)
 
 
@@ -158,12 +156,15 @@ def session_statistics(results: Sequence[StepResult], profile: Profile | None = 
     at least one step are listed, in :data:`QUANTITIES` order, the same in every group."""
     names = [q for q, spec in QUANTITIES.items() if any(spec.get(r) is not None
                                                         for r in results)]
-    out = [_group("all", "all", results, names, profile)]
+    limits = None if profile is None else {  # each step's limits, looked up once
+        r.index: {lim.quantity: (lim.low, lim.high) for lim in profile.limits_for(r)}
+        for r in results}
+    out = [_group("all", "all", results, names, limits)]
     for by in group_by:
         groups: dict[str, list[StepResult]] = {}
         for r in results:
             for key in _group_keys(r, by):
                 groups.setdefault(key, []).append(r)
         for key in sorted(groups, key=lambda k: _sort_key(by, k)):
-            out.append(_group(by, key, groups[key], names, profile))
+            out.append(_group(by, key, groups[key], names, limits))
     return tuple(out)
