@@ -34,6 +34,7 @@ from dataclasses import dataclass
 from livestep import second_order as so
 from livestep.model_fit import ModelFit
 from livestep.profile import Limit
+from livestep.verdict import format_seconds as _ms
 
 __all__ = ["ASSUMPTION", "SHORT_ASSUMPTION", "DesignCheck", "DesignRegion", "assess",
            "design_checks", "design_region"]
@@ -98,10 +99,6 @@ def design_region(limits: Iterable[Limit], band_pct: float = 2.0) -> DesignRegio
                  if ts_max is not None and ts_max > 0 else None)
     wd_min = math.pi / tp_max if tp_max is not None and tp_max > 0 else None
     return DesignRegion(zeta_min, sigma_min, wd_min, os_max, ts_max, tp_max, band_pct)
-
-
-def _ms(x: float) -> str:
-    return f"{1e3 * x:.3g} ms" if abs(x) < 1.0 else f"{x:.4g} s"
 
 
 def _short(value: float, needed: float) -> str:

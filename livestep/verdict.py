@@ -23,8 +23,8 @@ from livestep.profile import Profile
 from livestep.quantities import QUANTITIES, Quantity
 
 __all__ = ["FAIL", "NOT_MEASURED", "PASS", "SYMBOLS", "WARN", "Check", "StepVerdict",
-           "check_limit", "describe_check", "format_value", "gate_status", "judge",
-           "verdict_summary", "worst"]
+           "check_limit", "describe_check", "format_seconds", "format_value", "gate_status",
+           "judge", "verdict_summary", "worst"]
 
 PASS, WARN, FAIL, NOT_MEASURED = "pass", "warn", "fail", "not measured"
 
@@ -63,12 +63,17 @@ class StepVerdict:
         return tuple(c for c in self.checks if c.verdict == FAIL)
 
 
+def format_seconds(x: float) -> str:
+    """A time, below 1 s in milliseconds: "62.3 ms", "1.25 s"."""
+    return f"{1e3 * x:.3g} ms" if abs(x) < 1.0 else f"{x:.4g} s"
+
+
 def format_value(q: Quantity, x: float | None) -> str:
     """A value with its unit, times below 1 s in milliseconds ("62.3 ms", "12.5 %")."""
     if x is None:
         return "-"
     if q.unit == "s":
-        return f"{1e3 * x:.3g} ms" if abs(x) < 1.0 else f"{x:.4g} s"
+        return format_seconds(x)
     if q.unit == "%":
         return f"{x:.3g} %"
     return f"{x:.3g} {q.unit}".rstrip()
