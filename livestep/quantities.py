@@ -12,7 +12,7 @@ from dataclasses import dataclass, replace
 
 from livestep.analysis import StepResult
 
-__all__ = ["QUANTITIES", "Quantity", "value_of"]
+__all__ = ["QUANTITIES", "Quantity", "display_unit", "value_of"]
 
 
 @dataclass(frozen=True)
@@ -105,6 +105,13 @@ QUANTITIES: dict[str, Quantity] = _table(
     Quantity("fit_r2", "model fit R^2", "", "higher", _model("fit_r2"),
              missing=_NO_MODEL),
 )
+
+
+def display_unit(name: str) -> tuple[float, str]:
+    """(factor, unit) tables and plots show the quantity in: seconds as milliseconds, the
+    rest in their own unit."""
+    unit = QUANTITIES[name].unit
+    return (1e3, "ms") if unit == "s" else (1.0, unit)
 
 
 def value_of(result: StepResult, name: str) -> float | None:

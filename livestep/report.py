@@ -16,7 +16,7 @@ from rich.table import Table
 from livestep.analysis import StepResult
 from livestep.compare import Comparison
 from livestep.profile import Profile
-from livestep.quantities import QUANTITIES
+from livestep.quantities import QUANTITIES, display_unit
 from livestep.statistics import GroupStats, MetricStats
 from livestep.verdict import SYMBOLS, StepVerdict, describe_check
 
@@ -168,14 +168,14 @@ def render_table(results: Sequence[StepResult], console: Console, title: str,
 
 # -- statistics, design guidance and comparisons (see livestep.statistics, .design, .compare)
 
-_SHORT_UNITS = {"s": "ms", "feedback units": "fb", "feedback units x s": "fb s",
+_SHORT_UNITS = {"feedback units": "fb", "feedback units x s": "fb s",
                 "feedback units^2 x s": "fb^2 s", "feedback units x s^2": "fb s^2"}
 
 
 def _scaled(name: str) -> tuple[float, str]:
     """Display factor and short unit: seconds shown in ms, feedback units as fb."""
-    unit = QUANTITIES[name].unit
-    return (1e3 if unit == "s" else 1.0), _SHORT_UNITS.get(unit, unit)
+    factor, unit = display_unit(name)
+    return factor, _SHORT_UNITS.get(unit, unit)
 
 
 def _shown(name: str, x: float | None, fmt: str = ".4g") -> str:

@@ -7,7 +7,7 @@ from collections.abc import Sequence
 
 from livestep.analysis import StepResult
 from livestep.profile import Profile
-from livestep.quantities import QUANTITIES
+from livestep.quantities import QUANTITIES, display_unit
 from livestep.statistics import MetricStats
 
 __all__ = ["DEFAULT_QUANTITIES", "cp", "display_unit", "report_quantities"]
@@ -15,13 +15,6 @@ __all__ = ["DEFAULT_QUANTITIES", "cp", "display_unit", "report_quantities"]
 #: Shown in every report, after the quantities the profile limits.
 DEFAULT_QUANTITIES = ("rise_time", "overshoot_pct", "settling_time", "steady_state_error_pct",
                       "iae", "zeta", "wn", "dead_time", "fit_r2")
-
-
-def display_unit(quantity: str) -> tuple[float, str]:
-    """(factor, unit) a report shows the quantity in: seconds as milliseconds, the rest in
-    their own unit."""
-    unit = QUANTITIES[quantity].unit
-    return (1e3, "ms") if unit == "s" else (1.0, unit)
 
 
 def report_quantities(results: Sequence[StepResult], profile: Profile | None) -> list[str]:
