@@ -6,13 +6,18 @@ The numerical core needs no UI and no I/O::
     results = list(analyze_chunks([SampleChunk(t=t, setpoint=sp, feedback=fb)]))
 """
 
-from livestep.analysis import AnalysisSettings, StepAnalyzer, StepResult, analyze_chunks
-from livestep.detect import DetectorSettings, StepDetector, StepWindow
-from livestep.measure import MeasureSettings, StepMetrics, measure_step
-from livestep.model_fit import ClosedFormEstimate, ModelFit, closed_form_estimate, fit_second_order
-from livestep.profile import Profile, load_profile
-from livestep.samples import SampleChunk
-from livestep.verdict import StepVerdict, judge
+from livestep.judge.profile import Profile, load_profile
+from livestep.judge.verdict import StepVerdict, judge
+from livestep.steps.analysis import AnalysisSettings, StepAnalyzer, StepResult, analyze_chunks
+from livestep.steps.detect import DetectorSettings, StepDetector, StepWindow
+from livestep.steps.measure import MeasureSettings, StepMetrics, measure_step
+from livestep.steps.model_fit import (
+    ClosedFormEstimate,
+    ModelFit,
+    closed_form_estimate,
+    fit_second_order,
+)
+from livestep.steps.samples import SampleChunk
 
 __version__ = "0.1.0"
 

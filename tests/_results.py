@@ -5,9 +5,9 @@ from __future__ import annotations
 from dataclasses import replace
 from typing import Any
 
-from livestep.analysis import StepResult
-from livestep.measure import StepMetrics
-from livestep.model_fit import ClosedFormEstimate, ModelFit
+from livestep.steps.analysis import StepResult
+from livestep.steps.measure import StepMetrics
+from livestep.steps.model_fit import ClosedFormEstimate, ModelFit
 
 _METRICS = StepMetrics(
     t_step=1.0, direction="up", setpoint_before=0.0, setpoint_after=10.0, initial=0.0,

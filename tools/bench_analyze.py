@@ -35,7 +35,7 @@ import numpy as np
 
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
-from livestep.second_order import step_response  # noqa: E402
+from livestep.steps.second_order import step_response  # noqa: E402
 
 HOLD = 2.0  # seconds between steps
 TARGET_RATE = 1e6  # samples/s
@@ -145,10 +145,10 @@ def write_recording(path: Path, hours: float, rate: float, seed: int = 7) -> int
 # -- the two sides (run in child processes) -----------------------------------------------
 def run_livestep(path: str) -> dict[str, float]:
     """Read, detect, measure and fit, the way ``livestep analyze`` does with its defaults."""
-    from livestep.analysis import AnalysisSettings, analyze_chunks
-    from livestep.detect import DetectorSettings
-    from livestep.measure import MeasureSettings
-    from livestep.recording import ColumnMap, RecordingReader, read_ahead
+    from livestep.sources.recording import ColumnMap, RecordingReader, read_ahead
+    from livestep.steps.analysis import AnalysisSettings, analyze_chunks
+    from livestep.steps.detect import DetectorSettings
+    from livestep.steps.measure import MeasureSettings
 
     t0 = time.perf_counter()
     settings = AnalysisSettings(

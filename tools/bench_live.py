@@ -31,7 +31,7 @@ from rich.table import Table  # noqa: E402
 
 from livestep.decode.text import TextDecoder  # noqa: E402
 from livestep.decode.timebase import ClockSettings  # noqa: E402
-from livestep.session import Session  # noqa: E402
+from livestep.live.session import Session  # noqa: E402
 from livestep.sinks.recorder import Recorder  # noqa: E402
 from livestep.sources.serial_port import PortSettings, SerialReader  # noqa: E402
 

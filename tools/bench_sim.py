@@ -25,7 +25,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 from livestep.bench.device import BenchSettings, VirtualBench  # noqa: E402
 from livestep.bench.plants import AxisPlant, SecondOrderPlant  # noqa: E402
 from livestep.decode.timebase import ClockSettings  # noqa: E402
-from livestep.session import make_decoder  # noqa: E402
+from livestep.live.session import make_decoder  # noqa: E402
 from livestep.sources.serial_port import PortSettings, SerialReader  # noqa: E402
 
 

@@ -43,14 +43,14 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 from rich.console import Console  # noqa: E402
 from rich.table import Table  # noqa: E402
 
-from livestep.analysis import AnalysisSettings  # noqa: E402
-from livestep.profile import parse_profile  # noqa: E402
-from livestep.session import make_decoder  # noqa: E402
+from livestep.judge.profile import parse_profile  # noqa: E402
+from livestep.live.session import make_decoder  # noqa: E402
+from livestep.live.watch import Watch  # noqa: E402
 from livestep.sinks.base import Sink  # noqa: E402
 from livestep.sources.replay import ReplaySource  # noqa: E402
 from livestep.sources.serial_port import PortSettings, SerialReader  # noqa: E402
+from livestep.steps.analysis import AnalysisSettings  # noqa: E402
 from livestep.tui.app import LivestepApp  # noqa: E402
-from livestep.watch import Watch  # noqa: E402
 
 RATE = 20_000.0
 PROFILE = parse_profile('name = "bench"\n[limits]\novershoot_pct = { max = 20 }\n'
@@ -102,7 +102,7 @@ class BenchRun:
     in this process, so its CPU is counted on both sides."""
 
     def __init__(self) -> None:
-        from livestep.demo import demo_bench
+        from livestep.bench.demo import demo_bench
 
         self.bench = demo_bench(rate=RATE)
         self.path = self.bench.start()
@@ -117,8 +117,8 @@ class BenchRun:
 def make_watch(kind: str, path: Path) -> tuple[Watch, object | None, int | None]:
     settings = AnalysisSettings()
     if kind == "bench":
-        from livestep.demo import demo_decoder, demo_plan
-        from livestep.plan_run import PlanRunner
+        from livestep.bench.demo import demo_decoder, demo_plan
+        from livestep.live.plan_run import PlanRunner
 
         run = BenchRun()
         watch = Watch(SerialReader(PortSettings(url=run.path)), demo_decoder(), settings,

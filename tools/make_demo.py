@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
-from livestep.second_order import step_response  # noqa: E402
+from livestep.steps.second_order import step_response  # noqa: E402
 
 #: (setpoint mm, damping ratio) of each step of the default session
 DEMO_STEPS = [(50.0, 0.35), (80.0, 0.35), (30.0, 0.5), (60.0, 0.5), (40.0, 0.7),

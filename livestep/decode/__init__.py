@@ -1,1 +1,1 @@
-"""Decoders: bytes in, timestamped :class:`~livestep.samples.SampleChunk` batches out."""
+"""Decoders: bytes in, timestamped :class:`~livestep.steps.samples.SampleChunk` batches out."""

@@ -62,7 +62,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from livestep.decode.counters import LinkCounters
 from livestep.decode.timebase import ClockSettings, Timebase
-from livestep.samples import SampleChunk
+from livestep.steps.samples import SampleChunk
 
 __all__ = [
     "DEFAULT_CLOCK",
@@ -304,7 +304,7 @@ class FrameDecoder:
     """Stateful decoder for one link: bytes in (any split), sample chunks out.
 
     ``channels`` names the channels by position: ``setpoint`` and ``feedback`` fill those
-    fields of :class:`~livestep.samples.SampleChunk` (``feedback`` is required; without a
+    fields of :class:`~livestep.steps.samples.SampleChunk` (``feedback`` is required; without a
     ``setpoint`` role the chunks' setpoint is ``None``); other names, and ``ch<i>`` for
     channels beyond the names, go to ``extras``. ``clock`` describes the device
     timestamp (microseconds in a 32-bit counter by default). ``logs`` keeps the last

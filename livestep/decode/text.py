@@ -10,7 +10,7 @@ last ``max_logs``) for display. Decisions depend only on the bytes, never on
 how they were split into reads.
 
 A line that is one ``name=value`` pair, or several without spaces (``gains=B``,
-``kp = 2.5``, ``kp=1.2 ki=30``), is a note (:mod:`livestep.tags`) in a delimited
+``kp = 2.5``, ``kp=1.2 ki=30``), is a note (:mod:`livestep.steps.tags`) in a delimited
 stream, and in a ``name=value`` stream when none of its names is a column (else it
 is a damaged data line); so is a recording's ``# note: <t> name=value`` line
 on replay: it is stamped with the time of the last sample before it (of the first
@@ -27,11 +27,11 @@ import numpy as np
 from numpy.typing import NDArray
 
 from livestep.decode.counters import LinkCounters
+from livestep.decode.numparse import is_number, parse_block
 from livestep.decode.timebase import ClockSettings, Timebase
 from livestep.errors import InputError
-from livestep.numparse import is_number, parse_block
-from livestep.samples import SampleChunk
-from livestep.tags import NOTE_PREFIX, Note, parse_notes
+from livestep.steps.samples import SampleChunk
+from livestep.steps.tags import NOTE_PREFIX, Note, parse_notes
 
 __all__ = ["TextDecoder", "TextFormat"]
 

@@ -10,17 +10,17 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from livestep import __version__
-from livestep.analysis import StepResult
 from livestep.errors import InputError
-from livestep.measure import MeasureSettings
-from livestep.profile import Profile
-from livestep.quantities import QUANTITIES
+from livestep.judge.profile import Profile
+from livestep.judge.quantities import QUANTITIES
+from livestep.judge.statistics import session_statistics
+from livestep.judge.verdict import StepVerdict, judge
 from livestep.reports.page import ReportContent, render_page
 from livestep.reports.plots import TrendPoint, save_png, step_figure, svg_text, trend_figure
 from livestep.reports.session_info import SessionInfo
 from livestep.reports.summary import display_unit, report_quantities
-from livestep.statistics import session_statistics
-from livestep.verdict import StepVerdict, judge
+from livestep.steps.analysis import StepResult
+from livestep.steps.measure import MeasureSettings
 
 __all__ = ["write_report"]
 

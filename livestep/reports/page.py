@@ -13,14 +13,10 @@ import html
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from livestep.analysis import StepResult
-from livestep.measure import MeasureSettings
-from livestep.profile import Limit, Profile, Rule
-from livestep.quantities import QUANTITIES
-from livestep.reports.session_info import SessionInfo
-from livestep.reports.summary import cp, display_unit
-from livestep.statistics import GroupStats
-from livestep.verdict import (
+from livestep.judge.profile import Limit, Profile, Rule
+from livestep.judge.quantities import QUANTITIES
+from livestep.judge.statistics import GroupStats
+from livestep.judge.verdict import (
     FAIL,
     NOT_MEASURED,
     PASS,
@@ -29,6 +25,10 @@ from livestep.verdict import (
     Check,
     StepVerdict,
 )
+from livestep.reports.session_info import SessionInfo
+from livestep.reports.summary import cp, display_unit
+from livestep.steps.analysis import StepResult
+from livestep.steps.measure import MeasureSettings
 
 __all__ = ["ReportContent", "render_page"]
 

@@ -18,8 +18,8 @@ import matplotlib
 import numpy as np
 from matplotlib.figure import Figure
 
-from livestep.analysis import StepResult
-from livestep.second_order import step_response
+from livestep.steps.analysis import StepResult
+from livestep.steps.second_order import step_response
 
 __all__ = ["TrendPoint", "save_png", "step_figure", "svg_text", "trend_figure"]
 

@@ -90,7 +90,7 @@ def read_session_info(path: str | Path, *, metadata: dict[str, str], samples: in
                  first_t: float | None, last_t: float | None,
                  notes: tuple[str, ...] = ()) -> SessionInfo:
     """The facts of a recording: its header ``metadata`` (as
-    :class:`~livestep.recording.RecordingReader` read them), the segment, state and
+    :class:`~livestep.sources.recording.RecordingReader` read them), the segment, state and
     counters lines among its data, and what the analysis counted (``samples`` good
     samples between ``first_t`` and ``last_t``, seconds)."""
     counters = None

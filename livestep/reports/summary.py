@@ -1,14 +1,14 @@
 """What the report summarises: which quantities it shows and in which units, and Cp
-beside :mod:`livestep.statistics`' Cpk."""
+beside :mod:`livestep.judge.statistics`' Cpk."""
 
 from __future__ import annotations
 
 from collections.abc import Sequence
 
-from livestep.analysis import StepResult
-from livestep.profile import Profile
-from livestep.quantities import QUANTITIES, display_unit
-from livestep.statistics import MetricStats
+from livestep.judge.profile import Profile
+from livestep.judge.quantities import QUANTITIES, display_unit
+from livestep.judge.statistics import MetricStats
+from livestep.steps.analysis import StepResult
 
 __all__ = ["DEFAULT_QUANTITIES", "cp", "display_unit", "report_quantities"]
 

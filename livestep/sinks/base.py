@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
-from livestep.analysis import StepResult
 from livestep.decode.counters import LinkCounters
-from livestep.samples import SampleChunk
-from livestep.tags import Note
+from livestep.steps.analysis import StepResult
+from livestep.steps.samples import SampleChunk
+from livestep.steps.tags import Note
 
 __all__ = ["Sink"]
 

@@ -8,11 +8,11 @@ from typing import IO
 from rich.console import Console
 from rich.table import Table
 
-from livestep.analysis import StepResult
 from livestep.decode.counters import LinkCounters
+from livestep.judge.verdict import SYMBOLS, describe_check
 from livestep.sinks.base import Sink
-from livestep.tags import Note
-from livestep.verdict import SYMBOLS, describe_check
+from livestep.steps.analysis import StepResult
+from livestep.steps.tags import Note
 
 __all__ = ["ConsoleSink", "JsonLinesSink", "counters_table", "step_line"]
 
@@ -99,7 +99,7 @@ class JsonLinesSink(Sink):
         self.out = out
 
     def on_step(self, result: StepResult) -> None:
-        from livestep.report import step_record
+        from livestep.reports.tables import step_record
 
         self.out.write(json.dumps(step_record(result), allow_nan=False) + "\n")
         self.out.flush()

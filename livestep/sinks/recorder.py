@@ -22,9 +22,9 @@ import numpy as np
 
 from livestep import __version__
 from livestep.decode.counters import LinkCounters
-from livestep.samples import SampleChunk
 from livestep.sinks.base import Sink
-from livestep.tags import Note, format_note
+from livestep.steps.samples import SampleChunk
+from livestep.steps.tags import Note, format_note
 
 __all__ = ["Recorder", "unique_path"]
 

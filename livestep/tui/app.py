@@ -24,14 +24,14 @@ from textual.screen import ModalScreen
 from textual.widget import Widget
 from textual.widgets import DataTable, Footer, Input, Static
 
-from livestep.analysis import AnalysisSettings
 from livestep.errors import EXIT_OK, InputError
-from livestep.profile import Profile
+from livestep.judge.profile import Profile
+from livestep.live.watch import Samples, Snapshot, StepEntry, Watch
 from livestep.sources.replay import ReplaySource
-from livestep.tags import parse_notes
+from livestep.steps.analysis import AnalysisSettings
+from livestep.steps.tags import parse_notes
 from livestep.tui import views
 from livestep.tui.plot import Plot
-from livestep.watch import Samples, Snapshot, StepEntry, Watch
 
 __all__ = ["LivestepApp", "run_app", "save_report"]
 
@@ -138,7 +138,7 @@ def save_report(watch: Watch, folder: Path) -> str:
 
 
 class LivestepApp(App[int]):
-    """The live view of one :class:`~livestep.watch.Watch` (started on mount if it has
+    """The live view of one :class:`~livestep.live.watch.Watch` (started on mount if it has
     not been, stopped on exit)."""
 
     CSS_PATH = "app.tcss"
@@ -437,9 +437,9 @@ def run_demo_app(*, quick: bool = False, record: Path | None = None, fmt: str = 
     """``livestep demo`` in the terminal UI: the virtual bench on a pty, the built-in plan
     sent by a plan runner (its progress on the message line), each step judged against
     ``profile`` (default: the built-in demo spec), everything else as live."""
-    from livestep.demo import demo_bench, demo_decoder, demo_plan, demo_profile
-    from livestep.live import metadata_for
-    from livestep.plan_run import PlanRunner
+    from livestep.bench.demo import demo_bench, demo_decoder, demo_plan, demo_profile
+    from livestep.live.plan_run import PlanRunner
+    from livestep.live.run import metadata_for
     from livestep.sources.serial_port import PortSettings, SerialReader
 
     bench = demo_bench(fmt=fmt, seed=seed)
@@ -473,7 +473,7 @@ def run_app(watch: Watch) -> int:
     if snap.recording:
         print(f"livestep: recorded to {snap.recording}; steps in {snap.results_log}")
     if snap.error:
-        from livestep.live import exit_status
+        from livestep.live.run import exit_status
 
         print(f"livestep: error: {snap.error}")
         return exit_status(snap.error)

@@ -1,7 +1,7 @@
 """What the terminal UI shows, built from a watch snapshot as rich renderables and text.
 
-No textual here: every function takes plain data (a :class:`~livestep.watch.Snapshot`,
-a :class:`~livestep.watch.StepEntry`) and returns rich objects, so the screens' content
+No textual here: every function takes plain data (a :class:`~livestep.live.watch.Snapshot`,
+a :class:`~livestep.live.watch.StepEntry`) and returns rich objects, so the screens' content
 is tested without an app.
 """
 
@@ -14,15 +14,11 @@ from rich.console import Group, RenderableType
 from rich.table import Table
 from rich.text import Text
 
-from livestep.analysis import StepResult
-from livestep.design import SHORT_ASSUMPTION, assess, design_region
-from livestep.measure import MeasureSettings
-from livestep.profile import Profile
-from livestep.quantities import QUANTITIES, Quantity, value_of
-from livestep.second_order import step_response
-from livestep.tui.plot import HLine, Marker, Plot, Trace
-from livestep.verdict import FAIL, NOT_MEASURED, PASS, SYMBOLS, WARN, format_value
-from livestep.watch import (
+from livestep.judge.design import SHORT_ASSUMPTION, assess, design_region
+from livestep.judge.profile import Profile
+from livestep.judge.quantities import QUANTITIES, Quantity, value_of
+from livestep.judge.verdict import FAIL, NOT_MEASURED, PASS, SYMBOLS, WARN, format_value
+from livestep.live.watch import (
     DISCONNECTED,
     FINISHED,
     PAUSED,
@@ -33,6 +29,10 @@ from livestep.watch import (
     Snapshot,
     StepEntry,
 )
+from livestep.steps.analysis import StepResult
+from livestep.steps.measure import MeasureSettings
+from livestep.steps.second_order import step_response
+from livestep.tui.plot import HLine, Marker, Plot, Trace
 
 __all__ = ["STATE_SYMBOLS", "design_sentence", "history_row", "link_text", "step_panel",
            "step_plot", "verdict_text"]
@@ -122,7 +122,7 @@ def _limit_text(q: Quantity, low: float | None, high: float | None) -> str:
 
 
 def design_sentence(result: StepResult, profile: Profile | None, band_pct: float) -> str:
-    """The design-guidance sentence for a step (:mod:`livestep.design`): where the profile
+    """The design-guidance sentence for a step (:mod:`livestep.judge.design`): where the profile
     wants the dominant poles against the step's fitted model, the requirement missed by
     most first. ``band_pct``: the settling band, +- % of the amplitude."""
     if profile is None:

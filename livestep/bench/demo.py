@@ -1,0 +1,121 @@
+"""``livestep demo``: the whole tool on a virtual bench, no hardware, one command.
+
+:func:`run_demo` starts a :class:`~livestep.bench.device.VirtualBench` (the invented carton
+transfer axis, :class:`~livestep.bench.plants.AxisPlant`) on a pseudo-terminal, connects to
+it through pyserial exactly as to a real port (:func:`livestep.live.run.run_live`), and sends the
+built-in step plan (:func:`demo_plan`: two steps up and down under each of three gain sets,
+the derivative gain raised each time) with a :class:`~livestep.live.plan_run.PlanRunner`. Each
+step's result is printed as it is measured (by default), and the session is recorded as any
+live session is. It ends by itself when the plan is done.
+
+The pieces are reusable: a terminal UI takes over by building ``demo_bench()``,
+``demo_plan()`` and ``demo_decoder()`` itself, or by passing its own sink to
+``run_demo(sinks=[...], print_steps=False, stop=event)`` in a worker thread (setting ``event``
+ends the session: the safe command goes to the bench and the recording is closed).
+"""
+
+from __future__ import annotations
+
+import sys
+import threading
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any
+
+from livestep.bench.device import BenchSettings, VirtualBench, clock_start_for
+from livestep.bench.plants import AxisParams, AxisPlant, Gains
+from livestep.decode.timebase import ClockSettings
+from livestep.judge.profile import Profile, parse_profile
+from livestep.live.plan import Plan, parse_plan
+from livestep.live.plan_run import PlanRunner
+from livestep.live.run import run_live
+from livestep.live.session import Decoder, make_decoder
+from livestep.sinks.base import Sink
+from livestep.sources.serial_port import PortSettings
+from livestep.steps.analysis import AnalysisSettings
+
+__all__ = ["DEMO_PLAN", "DEMO_PROFILE_TOML", "demo_bench", "demo_decoder", "demo_plan",
+           "demo_profile", "run_demo"]
+
+#: The built-in plan: 5 mm moves of the transfer axis, retuned twice (positions in mm; kp
+#: N/mm, ki N/(mm s), kd N s/mm). Invented.
+DEMO_PLAN: dict[str, Any] = {
+    "levels": [5.0, 0.0],
+    "dwell": 1.0,
+    "repeats": 2,
+    "rest": 0.0,
+    "lead_in": 0.5,
+    "limits": {"min": -1.0, "max": 6.0, "max_step": 5.0},
+    "commands": {"setpoint": "sp {value:g}", "gains": "gains kp={kp:g} ki={ki:g} kd={kd:g}",
+                 "safe": "sp 0"},
+    "gains": [{"name": "soft", "kp": 20.0, "ki": 60.0, "kd": 0.1},
+              {"name": "medium", "kp": 20.0, "ki": 60.0, "kd": 0.2},
+              {"name": "firm", "kp": 20.0, "ki": 60.0, "kd": 0.3}],
+}
+#: The spec the demo judges its steps against (invented, like the axis): the soft and
+#: medium gain sets overshoot too much, the firm one meets it.
+DEMO_PROFILE_TOML = """\
+name = "carton transfer axis: demo spec"
+[limits]
+rise_time = { max = 0.040 }                 # seconds
+overshoot_pct = { max = 20, warn = 5 }      # % of the step
+settling_time = { max = 0.600 }             # seconds, +-2 % band
+steady_state_error_pct = { max = 5, warn = 2 }   # % of the setpoint change
+zeta = { min = 0.45 }                       # fitted damping ratio
+"""
+
+#: The gains the axis powers up with (the first set of the plan).
+DEMO_START_GAINS = Gains(**{k: v for k, v in DEMO_PLAN["gains"][0].items() if k != "name"})
+DEMO_RATE = 2000.0  # samples/s
+DEMO_WRAP_AFTER = 3.0  # s: the device clock wraps early in the session
+
+
+def demo_plan(quick: bool = False) -> Plan:
+    """The built-in plan (``quick``: one pass at half the dwell, for tests and CI)."""
+    doc = dict(DEMO_PLAN)
+    if quick:
+        doc.update(dwell=0.5, repeats=1, lead_in=0.3)
+    return parse_plan(doc, source="built-in demo plan")
+
+
+def demo_profile() -> Profile:
+    """The built-in demo spec (:data:`DEMO_PROFILE_TOML`)."""
+    return parse_profile(DEMO_PROFILE_TOML, source="built-in demo spec")
+
+
+def demo_bench(*, fmt: str = "text", rate: float = DEMO_RATE, seed: int = 1) -> VirtualBench:
+    """The virtual carton transfer axis (not started), its clock wrapping after 3 s."""
+    plant = AxisPlant(AxisParams(gains=DEMO_START_GAINS), seed=seed)
+    return VirtualBench(plant, BenchSettings(
+        rate=rate, fmt=fmt, clock_start=clock_start_for(DEMO_WRAP_AFTER),
+        banner="virtual bench: carton transfer axis, position loop (simulated)"))
+
+
+def demo_decoder() -> Decoder:
+    """How the demo reads the bench: detected format, 32-bit microsecond device time."""
+    clock = ClockSettings(unit="us", wrap_bits=32)
+    return make_decoder("auto", clock=clock, binary_clock=clock)
+
+
+def run_demo(*, quick: bool = False, record: Path | None = None, fmt: str = "text",
+             seed: int = 1, json_lines: bool = False, sinks: Sequence[Sink] = (),
+             print_steps: bool = True, settings: AnalysisSettings | None = None,
+             stop: threading.Event | None = None, profile: Profile | None = None) -> int:
+    """Run the demo to the end of its plan (or until ``stop`` is set, from another thread),
+    judging each step against ``profile`` (default: :func:`demo_profile`); returns the exit
+    status (0 when the plan ran to its end)."""
+    bench = demo_bench(fmt=fmt, seed=seed)
+    path = bench.start()
+    plan = demo_plan(quick)
+    print(f"livestep demo: virtual bench on {path} (simulated, no hardware); sending the"
+          f" built-in plan, {len(plan.commands)} commands over {plan.duration:.0f} s",
+          file=sys.stderr, flush=True)
+    try:
+        return run_live(PortSettings(url=path), demo_decoder(),
+                        settings if settings is not None else AnalysisSettings(),
+                        record=record, json_lines=json_lines, sinks=sinks,
+                        print_steps=print_steps, driver=PlanRunner(plan),
+                        source=f"livestep demo (virtual bench on {path})", stop=stop,
+                        profile=profile if profile is not None else demo_profile())
+    finally:
+        bench.stop()

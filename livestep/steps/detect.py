@@ -1,0 +1,338 @@
+"""Incremental step detection.
+
+Samples arrive in chunks of any size; the detector keeps only what it needs
+(the open step's window and a bounded history) and hands out each step's
+:class:`StepWindow` once the window is closed. Every decision depends only on
+the samples themselves, never on where a chunk ended, so live, replay and
+offline analysis give the same steps.
+
+Setpoint mode (the usual case): the setpoint is "moving" at a sample when it
+differs from the previous one by more than a tolerance. Moving samples closer
+than ``hold_samples`` apart form one transition. A transition is a step when
+it lasts at most ``max_transition`` samples, is followed by at least
+``hold_samples`` of steady setpoint and changes the setpoint by at least
+``min_step``; a longer transition is a ramp: it ends the open window and opens
+none. The step instant is the first sample carrying the new setpoint value.
+
+Feedback mode (no setpoint column): a step starts at the first sample that
+leaves the noise band (8 sigma) around the held feedback level and stays away
+(the median of the next ``hold_samples`` is outside the band too); the
+detector re-arms once the feedback has held a new level (block means of
+``hold_samples`` agreeing within the noise) for at least as long as it took
+to get there, between 2 and 10 blocks. The step instant is then when the
+feedback left the band, later than the setpoint moved by the dead time and
+the time to move 8 sigma; a ramp of the feedback is taken as a jump.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from livestep.steps.measure import noise_sigma, robust_level
+
+__all__ = ["DetectorSettings", "StepDetector", "StepWindow"]
+
+FloatArray = NDArray[np.float64]
+
+
+@dataclass(frozen=True, kw_only=True)
+class DetectorSettings:
+    """Detection options.
+
+    ``min_step``: smallest setpoint change (setpoint units) that counts as a step;
+    ``None`` derives it per step from the data: 10 times the feedback noise sigma
+    measured before the step (a smaller step cannot be measured against that
+    noise). In feedback mode it is the smallest jump of the feedback.
+    ``max_transition``: samples a setpoint change may take and still be a step.
+    ``hold_samples``: steady samples that separate transitions and confirm a level.
+    ``max_window``: longest step window, seconds. ``pre_samples``: at most this many
+    samples before the step are used for the initial level and noise.
+    ``setpoint_tolerance``: setpoint differences up to this (setpoint units) are steady.
+    """
+
+    min_step: float | None = None
+    max_transition: int = 5
+    hold_samples: int = 20
+    max_window: float = 120.0
+    pre_samples: int = 2000
+    setpoint_tolerance: float = 0.0
+
+
+@dataclass(frozen=True, kw_only=True, eq=False)
+class StepWindow:
+    """Samples of one step: ``t`` (seconds), ``feedback``, ``setpoint`` (``None`` in
+    feedback mode) from the start of the stretch used for the initial level to the end
+    of the window; ``i_step`` indexes the step instant."""
+
+    index: int
+    t: FloatArray
+    feedback: FloatArray
+    setpoint: FloatArray | None
+    i_step: int
+    setpoint_before: float | None
+    setpoint_after: float | None
+    end_reason: str
+
+    @property
+    def t_step(self) -> float:
+        """Step instant, seconds in the recording's time base."""
+        return float(self.t[self.i_step])
+
+
+class _Columns:
+    """Growable column buffer with a global sample index for its first row."""
+
+    def __init__(self, width: int) -> None:
+        self.data = np.empty((width, 1024))
+        self.size = 0
+        self.base = 0
+
+    @property
+    def end(self) -> int:
+        return self.base + self.size
+
+    def append(self, cols: list[FloatArray]) -> None:
+        n = cols[0].size
+        if self.size + n > self.data.shape[1]:
+            grown = np.empty((self.data.shape[0], max(2 * self.data.shape[1], self.size + n)))
+            grown[:, : self.size] = self.data[:, : self.size]
+            self.data = grown
+        for row, col in zip(self.data, cols, strict=True):
+            row[self.size : self.size + n] = col
+        self.size += n
+
+    def col(self, k: int, start: int, stop: int) -> FloatArray:
+        return self.data[k, start - self.base : stop - self.base]
+
+    def drop_before(self, index: int) -> None:
+        k = index - self.base
+        if k <= 0:
+            return
+        k = min(k, self.size)
+        if k * 2 >= self.size or k > 65536:
+            self.data[:, : self.size - k] = self.data[:, k : self.size]
+            self.size -= k
+            self.base += k
+
+
+@dataclass
+class _Open:
+    i_step: int
+    pre_start: int
+    sp_before: float | None
+    sp_after: float | None
+
+
+class StepDetector:
+    """Feed chunks with :meth:`feed`; call :meth:`finish` at the end of the stream.
+
+    Both return the windows closed by that call, in order.
+    """
+
+    def __init__(self, settings: DetectorSettings = DetectorSettings(),
+                 *, has_setpoint: bool = True) -> None:
+        self.settings = settings
+        self.has_setpoint = has_setpoint
+        self._buf = _Columns(3)
+        self._scan = 1 if has_setpoint else 0
+        self._hold_start = 0
+        self._open: _Open | None = None
+        self._in_ramp = False
+        self._count = 0
+        self._level: float | None = None  # feedback mode: held level, band, noise
+        self._band = 0.0
+        self._sigma: float | None = None
+        self._moved_at: int | None = None
+
+    # -- public -----------------------------------------------------------------
+    def feed(self, t: FloatArray, feedback: FloatArray,
+             setpoint: FloatArray | None = None) -> list[StepWindow]:
+        """Add samples (seconds; feedback and setpoint in their units)."""
+        t = np.asarray(t, dtype=float)
+        if t.size == 0:
+            return []
+        sp = np.asarray(setpoint, dtype=float) if setpoint is not None else np.zeros_like(t)
+        self._buf.append([t, np.asarray(feedback, dtype=float), sp])
+        out: list[StepWindow] = []
+        if self.has_setpoint:
+            self._scan_setpoint(out)
+        else:
+            self._scan_feedback(out)
+        self._check_max_window(out, self._buf.end)
+        self._trim()
+        return out
+
+    def finish(self, reason: str = "end of data") -> list[StepWindow]:
+        """Close the open window at the end of the stream (or segment: ``reason``)."""
+        out: list[StepWindow] = []
+        if self._open is not None:
+            self._check_max_window(out, self._buf.end)
+        if self._open is not None:
+            self._close(self._buf.end, reason, out)
+        return out
+
+    # -- setpoint mode ----------------------------------------------------------
+    def _moving(self, start: int, stop: int) -> NDArray[np.intp]:
+        sp = self._buf.col(2, start - 1, stop)
+        prev, cur = sp[:-1], sp[1:]
+        tol = self.settings.setpoint_tolerance + 1e-9 * np.maximum(np.abs(prev), np.abs(cur))
+        return start + np.flatnonzero(np.abs(cur - prev) > tol)
+
+    def _scan_setpoint(self, out: list[StepWindow]) -> None:
+        s = self.settings
+        end = self._buf.end
+        while self._scan < end:
+            moving = self._moving(self._scan, end)
+            if moving.size == 0:
+                self._scan = end
+                return
+            a = int(moving[0])
+            gaps = np.flatnonzero(np.diff(moving) > s.hold_samples)
+            last = int(moving[gaps[0]]) if gaps.size else int(moving[-1])
+            complete = gaps.size > 0 or last + s.hold_samples < end
+            length = last - a + 1
+            if self._in_ramp or length > s.max_transition:
+                # A ramp: ends the open window as soon as it is known to be one.
+                self._check_max_window(out, a)
+                if self._open is not None:
+                    self._close(a, "ramp", out)
+                self._in_ramp = not complete
+                self._hold_start = last + 1
+                self._scan = last if self._in_ramp else last + 1
+                if self._in_ramp:
+                    return
+                continue
+            if not complete:
+                self._scan = a
+                return
+            sp = self._buf.col(2, a - 1, last + 1)
+            before, after = float(sp[0]), float(sp[-1])
+            pre_start = self._pre_start(a)
+            threshold = s.min_step
+            if threshold is None:
+                threshold = 10.0 * noise_sigma(self._buf.col(1, pre_start, a))
+                threshold = max(threshold, 1e-6 * max(abs(before), abs(after)))
+            self._scan = last + 1
+            if abs(after - before) < threshold or after == before:
+                continue
+            tol = s.setpoint_tolerance + 1e-9 * abs(after)
+            i_step = a - 1 + int(np.argmax(np.abs(sp - after) <= tol))
+            self._check_max_window(out, a)
+            if self._open is not None:
+                self._close(a, "next step", out)
+            self._open = _Open(i_step, pre_start, before, after)
+            self._hold_start = last + 1
+
+    # -- feedback mode ----------------------------------------------------------
+    def _scan_feedback(self, out: list[StepWindow]) -> None:
+        s = self.settings
+        h = max(s.hold_samples, 5)
+        end = self._buf.end
+        while True:
+            if self._level is None:
+                if not self._find_hold(h, end):
+                    return
+                continue
+            if end - self._scan < h + 1:
+                return
+            fb = self._buf.col(1, self._scan, end)
+            away = np.flatnonzero(np.abs(fb[: fb.size - h] - self._level) > self._band)
+            for k in away:
+                confirm = fb[k + 1 : k + 1 + h]
+                if abs(float(np.median(confirm)) - self._level) > self._band:
+                    break
+            else:
+                self._scan = end - h
+                return
+            i = self._scan + int(k)
+            jump = float(np.median(confirm)) - self._level
+            self._check_max_window(out, i)
+            if self._open is not None:
+                self._close(i, "next step", out)
+            if s.min_step is None or abs(jump) >= s.min_step:
+                self._open = _Open(i, self._pre_start(i), None, None)
+            self._level = None
+            self._moved_at = i
+            self._scan = i + h
+
+    def _find_hold(self, h: int, end: int) -> bool:
+        """Look for a new held level: blocks of h samples from ``self._scan`` whose means
+        agree within the noise for at least 2h samples and at least as long as the
+        feedback took to get there since it moved (capped at 10h). Sets the level and band
+        when found."""
+        origin = self._scan
+        n_blocks = (end - origin) // h
+        if n_blocks < 2:
+            return False
+        blocks = self._buf.col(1, origin, origin + n_blocks * h).reshape(n_blocks, h)
+        means = blocks.mean(axis=1)
+        sigma = self._sigma
+        if sigma is None:  # no noise estimate yet: from the blocks themselves
+            sigma = float(np.median(np.sqrt(np.mean(np.diff(blocks, axis=1) ** 2, axis=1) / 2)))
+        tol = 6.0 * sigma / np.sqrt(h) + 1e-12 * max(1.0, float(np.abs(means).max()))
+        for b in range(n_blocks - 1):
+            start = origin + b * h
+            since = start - self._moved_at if self._moved_at is not None else 0
+            need = min(max(2, -(-since // h)), 10)
+            if b + need > n_blocks:
+                self._scan = start
+                return False
+            seg = means[b : b + need]
+            if seg.max() - seg.min() <= tol:
+                hold = self._buf.col(1, start, start + need * h)
+                self._sigma = noise_sigma(hold)
+                self._level = robust_level(hold)
+                self._band = max(8.0 * self._sigma, 0.5 * (self.settings.min_step or 0.0))
+                self._hold_start = start
+                self._scan = start + need * h
+                return True
+        self._scan = origin + (n_blocks - 1) * h
+        return False
+
+    # -- shared -----------------------------------------------------------------
+    def _pre_start(self, change: int) -> int:
+        """Start of the stretch before a change at ``change`` that gives the initial level
+        and the noise: the later half of the hold, at most ``pre_samples``."""
+        return max(self._hold_start + (change - self._hold_start) // 2,
+                   change - self.settings.pre_samples)
+
+    def _check_max_window(self, out: list[StepWindow], upto: int) -> None:
+        op = self._open
+        if op is None:
+            return
+        t_step = float(self._buf.col(0, op.i_step, op.i_step + 1)[0])
+        start = op.i_step
+        if upto <= start:
+            return
+        t = self._buf.col(0, start, upto)
+        over = np.flatnonzero(t - t_step > self.settings.max_window)
+        if over.size:
+            self._close(start + int(over[0]), "longest window", out)
+
+    def _close(self, stop: int, reason: str, out: list[StepWindow]) -> None:
+        op = self._open
+        assert op is not None
+        self._open = None
+        if stop - op.i_step < 2:
+            return
+        b = self._buf
+        out.append(StepWindow(
+            index=self._count,
+            t=b.col(0, op.pre_start, stop).copy(),
+            feedback=b.col(1, op.pre_start, stop).copy(),
+            setpoint=b.col(2, op.pre_start, stop).copy() if self.has_setpoint else None,
+            i_step=op.i_step - op.pre_start,
+            setpoint_before=op.sp_before,
+            setpoint_after=op.sp_after,
+            end_reason=reason,
+        ))
+        self._count += 1
+
+    def _trim(self) -> None:
+        keep = self._scan - self.settings.pre_samples - 1
+        if self._open is not None:
+            keep = min(keep, self._open.pre_start)
+        self._buf.drop_before(max(0, keep))

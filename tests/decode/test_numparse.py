@@ -1,0 +1,109 @@
+"""The reader's plain-decimal fast path: same values as the general parsers, bit for bit.
+
+References: Python's ``float()`` (correctly rounded decimal to double conversion) and
+the reader itself with the fast path switched off.
+"""
+
+from __future__ import annotations
+
+import tempfile
+from pathlib import Path
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+import livestep.decode.numparse as numparse
+import livestep.sources.recording as recording
+from livestep.errors import InputError
+
+DIGITS = "0123456789"
+
+
+@st.composite
+def plain_decimal(draw: st.DrawFn) -> str:
+    """A cell the fast path takes: optional "-", 1..15 digits, at most one "."."""
+    digits = draw(st.text(DIGITS, min_size=1, max_size=15))
+    dot = draw(st.none() | st.integers(0, len(digits)))
+    text = digits if dot is None else digits[:dot] + "." + digits[dot:]
+    return ("-" if draw(st.booleans()) else "") + text
+
+
+UNUSUAL = ["", ".", "-", "-.", "1.2.3", "1-2", "--1", "+1", "1e3", "1E-3", "nan", "inf",
+           " 1.5", "1.5 ", "1234567890123456", "0.1234567890123456", "x", "0x10"]
+
+
+def _values(block: bytes, ncol: int) -> np.ndarray | None:
+    return numparse._plain_decimals(block, block.count(b"\n"), ncol)
+
+
+@given(st.lists(plain_decimal(), min_size=3, max_size=90).map(lambda c: c[: len(c) // 3 * 3]))
+def test_plain_cells_are_the_doubles_float_gives(cells):
+    block = "".join(",".join(cells[i:i + 3]) + "\n" for i in range(0, len(cells), 3)).encode()
+    got = _values(block, 3)
+    assert got is not None
+    want = np.array([float(c) for c in cells]).reshape(-1, 3)
+    assert np.array_equal(got.view(np.int64), want.view(np.int64))  # bits, so -0.0 too
+
+
+def test_edge_cells():
+    cells = ["-0.000", "0", "-0", "007.50", ".5", "5.", "-.5", "999999999999999",
+             "0.00000000000001", "-123456789.01234", "3600.000000", "1"]
+    block = ("\n".join(",".join(cells[i:i + 3]) for i in range(0, 12, 3)) + "\n").encode()
+    got = _values(block, 3).ravel()
+    assert np.array_equal(got.view(np.int64), np.array([float(c) for c in cells]).view(np.int64))
+
+
+@pytest.mark.parametrize("cell", UNUSUAL)
+def test_anything_else_is_left_to_the_general_parsers(cell):
+    assert _values(f"1.0,2.0,3.0\n4.0,{cell},6.0\n".encode(), 3) is None
+
+
+def test_rows_of_the_wrong_length_are_left_to_the_general_parsers():
+    assert _values(b"1,2,3,4\n5,6\n", 3) is None
+
+
+def _read(path: Path, fast: bool, monkeypatch: pytest.MonkeyPatch):
+    with monkeypatch.context() as m:
+        m.setattr(recording, "_BLOCK_BYTES", 97)  # many blocks, cut anywhere
+        if not fast:
+            m.setattr(numparse, "_plain_decimals", lambda *args: None)
+        try:
+            reader = recording.RecordingReader(path)
+            chunks = [(c.t.tobytes(), c.setpoint.tobytes(), c.feedback.tobytes())
+                      for c in reader]
+        except InputError as exc:
+            return "error", str(exc)
+        except Exception as exc:  # compare crashes too: the fast path must not change them
+            return "crash", type(exc).__name__
+        return chunks, vars(reader.stats)
+
+
+row_cells = st.one_of(plain_decimal(), plain_decimal(), plain_decimal(), st.sampled_from(UNUSUAL))
+
+
+@st.composite
+def recording_text(draw: st.DrawFn) -> str:
+    lines = ["# source: invented test rows", "t,setpoint,feedback"]
+    for k in range(draw(st.integers(1, 40))):
+        kind = draw(st.sampled_from(["row"] * 8 + ["blank", "comment", "short", "long"]))
+        t = f"{0.001 * (k + 1):.{draw(st.sampled_from([3, 6]))}f}"
+        cells = [t, draw(row_cells), draw(row_cells)]
+        if kind == "blank":
+            lines.append("")
+        elif kind == "comment":
+            lines.append("# note")
+        else:
+            lines.append(",".join(cells[:2] if kind == "short" else
+                                  cells + ["1"] if kind == "long" else cells))
+    return "\n".join(lines) + ("\n" if draw(st.booleans()) else "")
+
+
+@settings(max_examples=200, deadline=None)
+@given(recording_text())
+def test_reader_gives_the_same_with_and_without_the_fast_path(text):
+    with tempfile.TemporaryDirectory() as tmp, pytest.MonkeyPatch.context() as mp:
+        path = Path(tmp) / "a.csv"
+        path.write_text(text)
+        assert _read(path, True, mp) == _read(path, False, mp)
