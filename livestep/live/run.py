@@ -187,8 +187,9 @@ def run_replay(path: Path, decoder: Decoder, settings: AnalysisSettings, *,
     if json_doc:
         from livestep.reports.tables import analysis_document, write_json
 
-        write_json(analysis_document(str(path), session.counters.samples, session.results),
-                   sys.stdout)
+        verdicts = list(session.verdicts) if session.profile is not None else None
+        write_json(analysis_document(str(path), session.counters.samples, session.results,
+                                     verdicts=verdicts, profile=session.profile), sys.stdout)
     else:
         Console(stderr=True).print(counters_table(session.counters))
     return EXIT_OK

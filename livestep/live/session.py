@@ -21,7 +21,7 @@ from livestep.decode.counters import LinkCounters
 from livestep.decode.text import TextDecoder, TextFormat
 from livestep.decode.timebase import ClockSettings
 from livestep.judge.profile import Profile
-from livestep.judge.verdict import judge
+from livestep.judge.verdict import StepVerdict, judge
 from livestep.sinks.base import Sink
 from livestep.steps.analysis import AnalysisSettings, StepAnalyzer, StepResult
 from livestep.steps.samples import SampleChunk
@@ -118,8 +118,8 @@ def make_decoder(kind: str = "auto", *, text: TextFormat | None = None,
 class Session:
     """Feed bytes with :meth:`feed`; :meth:`close` at the end. ``results`` keeps every
     step, or the last ``keep_results`` (an endless live stream); ``published`` counts
-    them all; with a ``profile`` every step is judged (``StepResult.verdict``) before the
-    sinks hear of it; sinks hear about everything as it happens."""
+    them all; with a ``profile`` every step is judged (``verdicts``, parallel to
+    ``results``) before the sinks hear of it; sinks hear about everything as it happens."""
 
     def __init__(self, decoder: Decoder, settings: AnalysisSettings | None = None,
                  sinks: Sequence[Sink] = (), *, keep_results: int | None = None,
@@ -129,6 +129,8 @@ class Session:
         self.settings = settings if settings is not None else AnalysisSettings()
         self.sinks = list(sinks)
         self.results: list[StepResult] | deque[StepResult] = (
+            [] if keep_results is None else deque(maxlen=keep_results))
+        self.verdicts: list[StepVerdict | None] | deque[StepVerdict | None] = (
             [] if keep_results is None else deque(maxlen=keep_results))
         self.published = 0
         self.last_t: float | None = None
@@ -228,13 +230,14 @@ class Session:
         out = [replace(r, index=self.published + k,
                        tags=self.notes.active_at(r.metrics.t_step))
                for k, r in enumerate(results)]
-        if self.profile is not None:  # after tagging: a profile's rules may match tags
-            out = [replace(r, verdict=judge(r, self.profile)) for r in out]
+        profile = self.profile  # judged after tagging: a profile's rules may match tags
+        verdicts = [None if profile is None else judge(r, profile) for r in out]
         self.results += out
+        self.verdicts += verdicts
         self.published += len(out)
-        for r in out:
+        for r, v in zip(out, verdicts, strict=True):
             for s in self.sinks:
-                s.on_step(r)
+                s.on_step(r, v)
         return out
 
 

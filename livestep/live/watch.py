@@ -8,6 +8,10 @@ measure, fit, judge) and keeps a lock-protected :class:`Snapshot` that a display
 at its own frame rate. Nothing is pushed per sample. Memory is bounded on an endless
 stream: the recent samples live in a fixed ring buffer and only the last
 ``keep_windows`` steps keep their samples; everything else is on disk.
+
+Why this module is long: :class:`Watch` owns the two threads, the lock and the state they
+share (snapshot, ring buffer, results log); splitting it would spread one lock's
+discipline over several files. The session it runs is in :mod:`livestep.live.session`.
 """
 
 from __future__ import annotations
@@ -82,11 +86,8 @@ class StepEntry:
     published (``time.monotonic()``)."""
 
     result: StepResult
+    verdict: StepVerdict | None = None
     published: float = 0.0
-
-    @property
-    def verdict(self) -> StepVerdict | None:
-        return self.result.verdict
 
 
 @dataclass(frozen=True)
@@ -177,7 +178,7 @@ def step_line_record(entry: StepEntry) -> dict[str, Any]:
     tags, and its verdict and checks when there is a profile)."""
     from livestep.reports.tables import step_record
 
-    return step_record(entry.result)
+    return step_record(entry.result, entry.verdict)
 
 
 class _Collector(Sink):
@@ -193,8 +194,8 @@ class _Collector(Sink):
             w._data_time = float(chunk.t[-1])
             w._last_data = time.monotonic()
 
-    def on_step(self, result: StepResult) -> None:
-        self.watch._add_step(result)
+    def on_step(self, result: StepResult, verdict: StepVerdict | None = None) -> None:
+        self.watch._add_step(result, verdict)
 
     def on_note(self, note: Note) -> None:
         with self.watch._lock:
@@ -347,8 +348,8 @@ class Watch:
             return WAITING
         return STREAMING
 
-    def _add_step(self, result: StepResult) -> None:
-        entry = StepEntry(result, time.monotonic())
+    def _add_step(self, result: StepResult, verdict: StepVerdict | None) -> None:
+        entry = StepEntry(result, verdict, time.monotonic())
         if self._log is None and self.results_log is not None:
             self._log = self.results_log.open("a", encoding="utf-8")
         if self._log is not None:

@@ -62,7 +62,6 @@ def step_record(r: StepResult, verdict: StepVerdict | None = None) -> dict[str, 
     rec["window_end"] = r.end_reason
     rec["warnings"] = list(r.warnings)
     rec["tags"] = dict(r.tags)
-    verdict = verdict if verdict is not None else r.verdict
     if verdict is not None:
         rec["verdict"] = verdict.verdict
         rec["checks"] = check_records(verdict)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from livestep.decode.counters import LinkCounters
+from livestep.judge.verdict import StepVerdict
 from livestep.steps.analysis import StepResult
 from livestep.steps.samples import SampleChunk
 from livestep.steps.tags import Note
@@ -19,8 +20,9 @@ class Sink:
     def on_chunk(self, chunk: SampleChunk) -> None:
         """Decoded samples."""
 
-    def on_step(self, result: StepResult) -> None:
-        """A step whose window has closed, measured and modelled."""
+    def on_step(self, result: StepResult, verdict: StepVerdict | None = None) -> None:
+        """A step whose window has closed, measured and modelled; ``verdict``: how it
+        fared against the session's profile (``None`` without one)."""
 
     def on_note(self, note: Note) -> None:
         """A note (``name=value`` at a time) from the stream or the user."""

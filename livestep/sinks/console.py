@@ -9,7 +9,7 @@ from rich.console import Console
 from rich.table import Table
 
 from livestep.decode.counters import LinkCounters
-from livestep.judge.verdict import SYMBOLS, describe_check
+from livestep.judge.verdict import SYMBOLS, StepVerdict, describe_check
 from livestep.sinks.base import Sink
 from livestep.steps.analysis import StepResult
 from livestep.steps.tags import Note
@@ -54,9 +54,9 @@ class ConsoleSink(Sink):
         self.console = console
         self._notes: list[Note] = []
 
-    def on_step(self, result: StepResult) -> None:
+    def on_step(self, result: StepResult, verdict: StepVerdict | None = None) -> None:
         self._print_notes()
-        line, v = step_line(result), result.verdict
+        line, v = step_line(result), verdict
         if v is not None:
             line = f"{line}: {SYMBOLS[v.verdict]} {v.verdict}"
         self.console.print(line, highlight=False, markup=False, soft_wrap=True)
@@ -98,8 +98,8 @@ class JsonLinesSink(Sink):
     def __init__(self, out: IO[str]) -> None:
         self.out = out
 
-    def on_step(self, result: StepResult) -> None:
+    def on_step(self, result: StepResult, verdict: StepVerdict | None = None) -> None:
         from livestep.reports.tables import step_record
 
-        self.out.write(json.dumps(step_record(result), allow_nan=False) + "\n")
+        self.out.write(json.dumps(step_record(result, verdict), allow_nan=False) + "\n")
         self.out.flush()

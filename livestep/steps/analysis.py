@@ -12,7 +12,6 @@ from collections import deque
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
 from multiprocessing.pool import AsyncResult
-from typing import TYPE_CHECKING
 
 from livestep.steps.detect import DetectorSettings, StepDetector, StepWindow
 from livestep.steps.measure import MeasureSettings, StepMetrics, measure_step
@@ -23,9 +22,6 @@ from livestep.steps.model_fit import (
     fit_second_order,
 )
 from livestep.steps.samples import SampleChunk
-
-if TYPE_CHECKING:  # verdict.py builds on this module
-    from livestep.judge.verdict import StepVerdict
 
 __all__ = ["AnalysisSettings", "StepAnalyzer", "StepResult", "analyze_chunks", "analyze_window"]
 
@@ -52,8 +48,6 @@ class StepResult:
     warnings: tuple[str, ...]
     #: Notes active at the step instant, as (name, value) pairs (e.g. the gain set in use).
     tags: tuple[tuple[str, str], ...] = ()
-    #: The step's verdict, when a session judges its steps against a profile.
-    verdict: StepVerdict | None = None
     #: The step's samples when ``AnalysisSettings.keep_windows`` is set (for plots).
     window: StepWindow | None = field(default=None, compare=False, repr=False)
 

@@ -54,7 +54,7 @@ def test_demo_stops_when_asked_and_sends_the_safe_command(tmp_path, capsys):
         def __init__(self) -> None:
             self.steps = []
 
-        def on_step(self, result) -> None:
+        def on_step(self, result, verdict=None) -> None:
             self.steps.append(result)
 
     sink, stop, status = Steps(), threading.Event(), []

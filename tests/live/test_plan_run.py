@@ -34,7 +34,7 @@ class Steps(Sink):
     def __init__(self) -> None:
         self.steps = []
 
-    def on_step(self, result) -> None:
+    def on_step(self, result, verdict=None) -> None:
         self.steps.append(result)
 
 

@@ -24,7 +24,7 @@ class Spy(Sink):
     def __init__(self) -> None:
         self.steps, self.ticks, self.closed = [], [], None
 
-    def on_step(self, result) -> None:
+    def on_step(self, result, verdict=None) -> None:
         self.steps.append(result)
 
     def on_tick(self, counters: LinkCounters) -> None:

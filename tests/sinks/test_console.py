@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import io
 import json
-from dataclasses import replace
 
 from rich.console import Console
 
@@ -36,17 +35,17 @@ def test_steps_carry_their_verdict_with_a_profile():
     profile = parse_profile("[limits]\novershoot_pct = { max = 10 }\n")
 
     def judged(r):  # as a session with this profile hands steps to its sinks
-        return replace(r, verdict=judge(r, profile))
+        return r, judge(r, profile)
 
     out = io.StringIO()
     sink = ConsoleSink(Console(file=out, width=300))
-    sink.on_step(judged(result(overshoot_pct=12.0)))
-    sink.on_step(judged(result(1, overshoot_pct=4.0)))
+    sink.on_step(*judged(result(overshoot_pct=12.0)))
+    sink.on_step(*judged(result(1, overshoot_pct=4.0)))
     lines = out.getvalue().splitlines()
     assert lines[0].endswith(": ✘ fail")
     assert lines[1] == "  ✘ fail: overshoot 12 % (max 10 %): above the maximum 10 %"
     assert lines[2].startswith("step 1 ") and lines[2].endswith(": ✔ pass") and len(lines) == 3
     js = io.StringIO()
-    JsonLinesSink(js).on_step(judged(result(overshoot_pct=12.0)))
+    JsonLinesSink(js).on_step(*judged(result(overshoot_pct=12.0)))
     rec = json.loads(js.getvalue())
     assert rec["verdict"] == "fail" and rec["checks"][0]["margin"] == -2.0
