@@ -48,6 +48,10 @@ Counting (:class:`~livestep.decode.counters.LinkCounters`):
   gaps do not count a second time; they are kept in ``FrameDecoder.time_gaps``. Its
   ``restarts`` and ``bad`` counts are passed on.
 - ``log_lines``: log frames decoded (UTF-8, invalid bytes replaced).
+
+Why this module is long: about 100 of its lines are the wire format above, the rest is one
+vectorised decoder with its CRC and COBS tables and the matching encoders, which the
+tests and the virtual bench use to produce exactly what the decoder reads.
 """
 
 from __future__ import annotations

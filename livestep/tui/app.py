@@ -4,6 +4,10 @@ The app never handles samples one by one: a timer pulls the watch's snapshot at
 :attr:`LivestepApp.FPS` frames per second, appends only the new history rows and
 redraws the plot from the recent samples. Everything it shows is built by
 :mod:`livestep.tui.views`.
+
+Why this module is long: it is one textual ``App`` (keys, layout, frame timer) and the
+two modal screens (notes, help) whose bindings only make sense with it; what the UI
+draws lives in :mod:`livestep.tui.views` and :mod:`livestep.tui.plot` already.
 """
 
 from __future__ import annotations
