@@ -13,6 +13,8 @@ from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
 from multiprocessing.pool import AsyncResult
 
+import numpy as np
+
 from livestep.steps.detect import DetectorSettings, StepDetector, StepWindow
 from livestep.steps.measure import MeasureSettings, StepMetrics, measure_step
 from livestep.steps.model_fit import (
@@ -53,13 +55,24 @@ class StepResult:
 
 
 def analyze_window(w: StepWindow, settings: AnalysisSettings = AnalysisSettings()) -> StepResult:
-    """Measure and model one detected step."""
-    m = measure_step(w.t, w.feedback, w.i_step, setpoint=w.setpoint,
-                     setpoint_before=w.setpoint_before, setpoint_after=w.setpoint_after,
-                     settings=settings.measure)
+    """Measure and model one detected step. Never raises on the step's data: a step that
+    cannot be measured, or whose model cannot be fitted, says so in its warnings (and an
+    error there is a bug, reported with the step rather than ending the stream)."""
+    try:
+        m = measure_step(w.t, w.feedback, w.i_step, setpoint=w.setpoint,
+                         setpoint_before=w.setpoint_before, setpoint_after=w.setpoint_after,
+                         settings=settings.measure)
+    except Exception as exc:  # noqa: BLE001 - one step must not end the stream
+        m = unmeasured(w, f"not measured: internal error {type(exc).__name__}: {exc}")
     warnings = list(m.warnings)
-    model = fit_second_order(w.t, w.feedback, m) if settings.fit_model else None
-    if settings.fit_model and model is None:
+    model = None
+    if settings.fit_model and m.rise_time is not None:
+        try:
+            model = fit_second_order(w.t, w.feedback, m)
+        except Exception as exc:  # noqa: BLE001 - a failed fit loses the model only
+            warnings.append(f"no second-order model: the fit failed ({type(exc).__name__})")
+    if settings.fit_model and model is None and not any(
+            x.startswith("no second-order model") for x in warnings):
         warnings.append("no second-order model: the response has no measurable rise")
     elif model is not None and model.fit_r2 < 0.9:
         warnings.append(f"the second-order model fits poorly (R^2 = {model.fit_r2:.3f})")
@@ -68,6 +81,23 @@ def analyze_window(w: StepWindow, settings: AnalysisSettings = AnalysisSettings(
     return StepResult(index=w.index, metrics=m, estimate=closed_form_estimate(
         m, settings.measure.settling_band), model=model, end_reason=w.end_reason,
         warnings=tuple(warnings), window=w if settings.keep_windows else None)
+
+
+def unmeasured(w: StepWindow, reason: str) -> StepMetrics:
+    """The metrics of a step that could not be measured: its instant and setpoints, no
+    figures, ``reason`` as its warning."""
+    t_step = float(w.t[w.i_step])
+    level = float(w.feedback[w.i_step])
+    change = (None if w.setpoint_before is None or w.setpoint_after is None
+              else w.setpoint_after - w.setpoint_before)
+    dt = float(np.median(np.diff(w.t))) if w.t.size > 1 else 0.0
+    return StepMetrics(
+        t_step=t_step, direction="up" if (change or 0.0) >= 0 else "down",
+        setpoint_before=w.setpoint_before, setpoint_after=w.setpoint_after, initial=level,
+        final=level, amplitude=0.0, rise_time=None, delay_time=None, peak_time=None,
+        peak=None, overshoot_pct=0.0, undershoot_pct=0.0, settling_time=None, settled=False,
+        steady_state_error=None, steady_state_error_pct=None, iae=None, ise=None, itae=None,
+        noise_sigma=0.0, sample_period=dt, smoothing_samples=1, warnings=(reason,))
 
 
 class StepAnalyzer:

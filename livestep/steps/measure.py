@@ -177,11 +177,59 @@ def _savgol(window: int) -> FloatArray:
     return np.linalg.pinv(design)[0]
 
 
-def _box(y: FloatArray, size: int) -> FloatArray:
-    """Centred moving average over an odd ``size``, the ends extended with their values."""
-    half = size // 2
-    c = np.cumsum(np.pad(y, (half + 1, half), mode="edge"))
-    return (c[size:] - c[:-size]) / size
+@lru_cache(maxsize=256)
+def _noise_gain(window: int) -> float:
+    """Standard deviation of white noise after :func:`_smooth` over ``window`` samples, as a
+    fraction of the noise's own (the root sum of squares of the filter's weights)."""
+    return 1.0 if window < 5 else float(np.sqrt(np.sum(_savgol(window) ** 2)))
+
+
+def _span(samples: float) -> int:
+    """An odd smoothing span of about ``samples``; 1 (no smoothing) below 5."""
+    k = _odd(samples, 1)
+    return k if k >= 5 else 1
+
+
+def _smoothing_spans(tg: FloatArray, yg: FloatArray, g0: int, initial: float, amp: float,
+                     rel: float, band: float, dt: float) -> tuple[int, int]:
+    """Smoothing spans (samples) chosen from the response and the noise alone, never from
+    the window's length: ``rise`` for the reference-level crossings and ``shape`` for the
+    peak and the settling band.
+
+    rise: 0.4 of the rise time, found by iterating from the span the noise needs to place
+    the crossings to 2 % of the amplitude (at most three passes; a cubic that short follows
+    the rise closely). shape: long enough that the smoothed noise is a tenth of the band,
+    but no longer than half the time from the low crossing to the first peak (a quarter of
+    the oscillation period) or, without a peak, two rise times, so an oscillation keeps its
+    amplitude; never shorter than ``rise``. ``rel``: noise sigma / |amplitude|.
+    """
+    def crossings(window: int) -> tuple[FloatArray, float | None, float | None]:
+        r = (_smooth(yg, window) - initial) / amp
+        return r, _first_crossing(tg, r, 0.1, g0), _first_crossing(tg, r, 0.9, g0)
+
+    rise_span = _span((1.5 * rel / 0.02) ** 2)
+    r, lo_t, hi_t = crossings(rise_span)
+    for _ in range(3):
+        if lo_t is None or hi_t is None:
+            return rise_span, rise_span
+        new = _span(0.4 * (hi_t - lo_t) / dt)
+        if new == rise_span:
+            break
+        rise_span = new
+        r, lo_t, hi_t = crossings(rise_span)
+    if lo_t is None or hi_t is None:
+        return rise_span, rise_span
+    rise = hi_t - lo_t
+    i_lo = int(np.searchsorted(tg, lo_t))
+    horizon = int(np.searchsorted(tg, lo_t + 6.0 * max(rise, dt)))
+    i_pk = i_lo + int(np.argmax(r[i_lo:max(horizon, i_lo + 1)]))
+    resid = rel * _noise_gain(rise_span)
+    if r[i_pk] - 1.0 > max(5.0 * resid, 1e-3):
+        cap = 0.5 * (tg[i_pk] - lo_t) / dt
+    else:
+        cap = 2.0 * rise / dt
+    wanted = (1.5 * rel / (0.1 * band)) ** 2
+    return rise_span, max(rise_span, _span(min(wanted, cap)))
 
 
 def _trapezoid(y: FloatArray, x: FloatArray) -> float:
@@ -260,27 +308,11 @@ def measure_step(
     final = tail_final(tail_from)
     amp = final - initial
     band = settings.settling_band / 100.0
-    window = 1
-    ys = yg
+    w_rise = w_shape = 1
     if abs(amp) >= 5.0 * sigma and sigma > 1e-6 * abs(amp) and dt > 0:
-        # Smooth over 0.4 of the rise time: a cubic fit that short follows the response
-        # closely. The rise time comes from a coarse moving average first.
-        coarse = (_box(yg, _odd(yg.size / 20, 5)) - initial) / amp
-        lo_t = _first_crossing(tg, coarse, 0.1, g0)
-        hi_t = _first_crossing(tg, coarse, 0.9, g0)
-        if lo_t is not None and hi_t is not None:
-            window = _odd(0.4 * (hi_t - lo_t) / dt, 1)
-            window = window if window >= 5 else 1
-            k = (window // 10) | 1  # odd, so the box is centred on its point
-            if k >= 3:
-                # A long smoothing span: average blocks of k samples first (a box ten
-                # times shorter than the span, so the smoothing is the same to first
-                # order) and go on with every k-th point, the step instant among them.
-                yg = _box(yg, k)[g0 % k::k]
-                tg = tg[g0 % k::k]
-                g0 //= k
-            if window >= 5:
-                ys = _smooth(yg, _odd(window / k, 5))
+        w_rise, w_shape = _smoothing_spans(tg, yg, g0, initial, amp, sigma / abs(amp), band, dt)
+    r_rise = (_smooth(yg, w_rise) - initial) / amp if amp else yg - initial
+    ys = _smooth(yg, w_shape) if w_shape != w_rise else initial + amp * r_rise
     for _ in range(3):
         amp = final - initial
         if amp == 0.0 or abs(amp) < 5.0 * sigma:
@@ -305,16 +337,21 @@ def measure_step(
             undershoot_pct=0.0, settling_time=None, settled=False,
             steady_state_error=None if setpoint_after is None else setpoint_after - final,
             steady_state_error_pct=None, iae=None, ise=None, itae=None, noise_sigma=sigma,
-            sample_period=dt, smoothing_samples=window, warnings=tuple(warnings))
+            sample_period=dt, smoothing_samples=w_shape, warnings=tuple(warnings))
 
+    r_rise = (_smooth(yg, w_rise) - initial) / amp
     r = (ys - initial) / amp
-    resid = sigma / abs(amp) * (1.5 / math.sqrt(window) if window >= 5 else 1.0)
+    rel = sigma / abs(amp)
+    resid = rel * _noise_gain(w_shape)
     lo, hi = (x / 100.0 for x in settings.rise_levels)
-    t_lo = _first_crossing(tg, r, lo, g0)
-    t_hi = _first_crossing(tg, r, hi, g0)
-    t_50 = _first_crossing(tg, r, 0.5, g0)
+    t_lo = _first_crossing(tg, r_rise, lo, g0)
+    t_hi = _first_crossing(tg, r_rise, hi, g0)
+    t_50 = _first_crossing(tg, r_rise, 0.5, g0)
     rise = None if t_lo is None or t_hi is None else t_hi - t_lo
     delay = None if t_50 is None else t_50 - t_step
+    if rise is not None and dt > 0 and rise < 2.0 * dt:
+        warnings.append(f"the rise spans fewer than 2 samples: rise time {rise * 1e3:.3g} ms"
+                        f" is known only to about a sample period ({dt * 1e3:.3g} ms)")
 
     i_pk = g0 + int(np.argmax(r[g0:]))
     peak_time = peak = None
@@ -326,8 +363,8 @@ def measure_step(
             overshoot = 100.0 * (rp - 1.0)
 
     i_50 = int(np.searchsorted(tg, t_50)) if t_50 is not None else r.size
-    undershoot = max(0.0, -100.0 * float(np.min(r[g0:max(i_50, g0 + 1)])))
-    if undershoot <= 100.0 * max(5.0 * resid, 1e-3):
+    undershoot = max(0.0, -100.0 * float(np.min(r_rise[g0:max(i_50, g0 + 1)])))
+    if undershoot <= 100.0 * max(5.0 * rel * _noise_gain(w_rise), 1e-3):
         undershoot = 0.0
 
     settle_t, _ = _settling(tg, r, g0, band)
@@ -352,7 +389,7 @@ def measure_step(
         warnings.append(
             f"noise sigma is {100 * sigma / abs(amp):.2g} % of the amplitude, large against the"
             f" +-{settings.settling_band:g} % settling band; measured on a response smoothed over"
-            f" {window} samples")
+            f" {w_shape} samples")
 
     sse = sse_pct = iae = ise = itae = None
     if setpoint_after is not None:
@@ -371,5 +408,5 @@ def measure_step(
         rise_time=rise, delay_time=delay, peak_time=peak_time, peak=peak,
         overshoot_pct=overshoot, undershoot_pct=undershoot, settling_time=settling_time,
         settled=settled, steady_state_error=sse, steady_state_error_pct=sse_pct, iae=iae,
-        ise=ise, itae=itae, noise_sigma=sigma, sample_period=dt, smoothing_samples=window,
+        ise=ise, itae=itae, noise_sigma=sigma, sample_period=dt, smoothing_samples=w_shape,
         warnings=tuple(warnings), rise_start=None if t_lo is None else t_lo - t_step)

@@ -30,6 +30,8 @@ __all__ = ["ClosedFormEstimate", "ModelFit", "closed_form_estimate", "fit_second
 FloatArray = NDArray[np.float64]
 _MAX_BINS = 200
 _CHI2_1DOF_95 = 3.841  # scipy.stats.chi2.ppf(0.95, 1)
+_LOG_ZETA = (math.log(1e-3), math.log(1e4))  # the damping ratios a fit may reach
+_LOG_WN_RANGE = math.log(1e6)  # how far (a factor) wn may go from its start
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -171,10 +173,18 @@ def fit_second_order(
 
     # Parameters: offset, gain (both of the normalised response), log zeta, log wn and
     # q = sqrt(dead time), which keeps the dead time at or above zero without bounds so
-    # the fast Levenberg-Marquardt solver (MINPACK) can be used.
+    # the fast Levenberg-Marquardt solver (MINPACK) can be used. The solver may wander far
+    # on data the model cannot describe (a first-order response drives zeta up without
+    # limit): zeta is held within 1e-3..1e4 and wn within 1e-6..1e6 times its start.
+    log_wn0 = math.log(wn0)
+
+    def zeta_wn(log_zeta: float, log_wn: float) -> tuple[float, float]:
+        return (math.exp(min(max(log_zeta, _LOG_ZETA[0]), _LOG_ZETA[1])),
+                math.exp(min(max(log_wn, log_wn0 - _LOG_WN_RANGE), log_wn0 + _LOG_WN_RANGE)))
+
     def residual(p: FloatArray, tt: FloatArray, yy: FloatArray) -> FloatArray:
         c0, g, log_zeta, log_wn, q = p
-        return c0 + g * so.step_response(tt - q * q, math.exp(log_zeta), math.exp(log_wn)) - yy
+        return c0 + g * so.step_response(tt - q * q, *zeta_wn(log_zeta, log_wn)) - yy
 
     def weighted(p: FloatArray, tt: FloatArray, yy: FloatArray) -> FloatArray:
         return weight * residual(p, tt, yy)
@@ -183,11 +193,11 @@ def fit_second_order(
         # s(tau; zeta, wn) = S(wn tau; zeta): ds/dlog(wn) = tau h, ds/dtheta = -h; the
         # zeta column by a forward difference.
         c0, g, log_zeta, log_wn, q = p
-        zeta, wn = math.exp(log_zeta), math.exp(log_wn)
+        zeta, wn = zeta_wn(log_zeta, log_wn)
         tau = tt - q * q
         s, h = so.step_and_impulse(tau, zeta, wn)
         dz = 1e-6
-        s_dz = so.step_response(tau, math.exp(log_zeta + dz), wn)
+        s_dz = so.step_response(tau, zeta * math.exp(dz), wn)
         return weight[:, None] * np.column_stack((np.ones_like(tt), s, g * (s_dz - s) / dz,
                                                   g * np.maximum(tau, 0.0) * h, -2 * q * g * h))
 
@@ -212,7 +222,7 @@ def fit_second_order(
             res = residual(best.x, ts, yn)
     c0, g, log_zeta, log_wn, q = best.x
     theta = q * q
-    zeta, wn = math.exp(log_zeta), math.exp(log_wn)
+    zeta, wn = zeta_wn(log_zeta, log_wn)
     ss_tot = float(np.sum((yn - yn.mean()) ** 2))
     r2 = 1.0 - float(np.sum(res**2)) / ss_tot if ss_tot > 0 else 0.0
     amplitude = g * m.amplitude

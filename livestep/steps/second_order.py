@@ -56,8 +56,11 @@ def step_and_impulse(t: ArrayLike, zeta: float,
         sin_over_x = np.where(x == 0.0, 1.0, np.sin(x) / safe_x)
         s = 1.0 - decay * (np.cos(x) + sigma_t * sin_over_x)
         return s, wn * wn * t * decay * sin_over_x
-    x = wn * math.sqrt(zeta * zeta - 1.0) * t
-    e_slow = np.exp(x - sigma_t)  # exp(-sigma t) cosh, sinh without overflow
+    root = math.sqrt(zeta * zeta - 1.0)
+    x = wn * root * t
+    # exp(-sigma t) cosh, sinh without overflow; the slow pole wn (zeta - root) written as
+    # wn / (zeta + root) so heavy damping does not cancel it to zero
+    e_slow = np.exp(-wn / (zeta + root) * t)
     e_fast = np.exp(-x - sigma_t)
     small = x < 1e-4
     safe_x = np.where(small, 1.0, x)
@@ -123,10 +126,12 @@ def bandwidth(zeta: float, wn: float) -> float:
     """Closed-loop -3 dB bandwidth, rad/s.
 
     wBW = wn sqrt(1 - 2 zeta^2 + sqrt(4 zeta^4 - 4 zeta^2 + 2)) (Nise; Ogata), valid
-    for all zeta > 0.
+    for all zeta > 0. With a = 1 - 2 zeta^2 the root's argument is a + sqrt(a^2 + 1), written
+    1 / (sqrt(a^2 + 1) - a) for a < 0, so heavy damping does not cancel to zero.
     """
-    z2 = zeta * zeta
-    return wn * math.sqrt(1.0 - 2.0 * z2 + math.sqrt(4.0 * z2 * z2 - 4.0 * z2 + 2.0))
+    a = 1.0 - 2.0 * zeta * zeta
+    root = math.hypot(a, 1.0)
+    return wn * math.sqrt(a + root if a >= 0.0 else 1.0 / (root - a))
 
 
 def phase_margin_deg(zeta: float) -> float:
@@ -134,8 +139,9 @@ def phase_margin_deg(zeta: float) -> float:
 
     PM = atan(2 zeta / sqrt(sqrt(1 + 4 zeta^4) - 2 zeta^2)) (Ogata; Franklin et
     al., who also give the rule of thumb zeta ~ PM/100 up to about 60 degrees).
-    Only meaningful when the closed loop really is that standard form.
+    Only meaningful when the closed loop really is that standard form. Computed as
+    atan(2 zeta sqrt(sqrt(1 + 4 zeta^4) + 2 zeta^2)), the same value (multiply the root's
+    argument by its conjugate), which does not cancel to zero for heavy damping.
     """
     z2 = zeta * zeta
-    root = math.sqrt(math.sqrt(1.0 + 4.0 * z2 * z2) - 2.0 * z2)
-    return math.degrees(math.atan(2.0 * zeta / root))
+    return math.degrees(math.atan(2.0 * zeta * math.sqrt(math.hypot(1.0, 2.0 * z2) + 2.0 * z2)))

@@ -122,7 +122,7 @@ def test_zeta_from_overshoot_rejects_what_cannot_be_inverted(os_pct: float) -> N
 # ---------------------------------------------------------------- frequency domain
 
 
-@pytest.mark.parametrize("zeta", [0.05, 0.1, 0.3, 0.5, 0.707, 0.9, 1.0, 1.5, 3.0])
+@pytest.mark.parametrize("zeta", [0.05, 0.1, 0.3, 0.5, 0.707, 0.9, 1.0, 1.5, 3.0, 30.0, 1e3])
 @pytest.mark.parametrize("wn", [1.0, 40.0])
 def test_bandwidth_is_the_minus_3db_frequency(zeta: float, wn: float) -> None:
     # Reference: the frequency where |G(jw)| = 1/sqrt(2), from scipy.signal.freqresp of the
@@ -140,7 +140,8 @@ def test_bandwidth_is_the_minus_3db_frequency(zeta: float, wn: float) -> None:
     assert mag[0] == pytest.approx(20 * math.log10(1 / math.sqrt(2)), abs=1e-6)
 
 
-@pytest.mark.parametrize("zeta", [0.05, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 1.0, 2.0, 3.0])
+@pytest.mark.parametrize("zeta", [0.05, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 1.0, 1.3, 2.0, 3.0,
+                                  10.0, 100.0])
 def test_phase_margin_matches_python_control(zeta: float) -> None:
     # Reference: control.margin of the open loop wn^2 / (s (s + 2 zeta wn)), whose unity
     # feedback closed loop is the standard second-order system.
@@ -277,3 +278,14 @@ def test_settling_rules_of_thumb_error_ranges(table: dict[str, np.ndarray]) -> N
     sel5 = (t5["zeta"] >= 0.1) & (t5["zeta"] <= 0.6)
     err5 = _err_pct(3.0 / t5["zeta"][sel5], t5["ts"][sel5])
     assert -5.0 < err5.min() < -4.0 and 29.5 < err5.max() < 31.0
+
+
+@pytest.mark.parametrize("zeta", [1e4, 1e6, 1e9])
+def test_heavy_damping_tends_to_a_first_order_loop(zeta: float) -> None:
+    # A fit of a first-order-like response drives zeta far above 1. The closed loop then has
+    # a slow pole at wn / (2 zeta) (the smaller root of s^2 + 2 zeta wn s + wn^2, expanded
+    # for large zeta) that sets its -3 dB bandwidth, and the open loop's phase at crossover
+    # tends to -90 degrees, so the phase margin tends to 90 degrees. Neither may fail.
+    wn = 40.0
+    assert so.bandwidth(zeta, wn) == pytest.approx(wn / (2.0 * zeta), rel=1e-6)
+    assert so.phase_margin_deg(zeta) == pytest.approx(90.0, abs=1e-3)
