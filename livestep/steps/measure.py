@@ -177,6 +177,27 @@ def _savgol(window: int) -> FloatArray:
     return np.linalg.pinv(design)[0]
 
 
+def _box(y: FloatArray, size: int) -> FloatArray:
+    """Centred moving average over an odd ``size``, the ends extended with their values."""
+    half = size // 2
+    c = np.cumsum(np.pad(y, (half + 1, half), mode="edge"))
+    return (c[size:] - c[:-size]) / size
+
+
+def _smoothed(tg: FloatArray, yg: FloatArray, g0: int,
+              window: int) -> tuple[FloatArray, FloatArray, int]:
+    """(times, values, index of the step instant) of ``yg`` smoothed over ``window`` samples
+    of the uniform grid ``tg``. A long span first averages blocks of k = window / 10
+    samples and goes on with every k-th point, the step instant among them (the same
+    smoothing to first order, at 1/k^2 of the cost)."""
+    if window < 5:
+        return tg, yg, g0
+    k = (window // 10) | 1  # odd, so the box is centred on its point
+    if k < 3:
+        return tg, _smooth(yg, window), g0
+    return tg[g0 % k::k], _smooth(_box(yg, k)[g0 % k::k], _odd(window / k, 5)), g0 // k
+
+
 @lru_cache(maxsize=256)
 def _noise_gain(window: int) -> float:
     """Standard deviation of white noise after :func:`_smooth` over ``window`` samples, as a
@@ -203,12 +224,13 @@ def _smoothing_spans(tg: FloatArray, yg: FloatArray, g0: int, initial: float, am
     the oscillation period) or, without a peak, two rise times, so an oscillation keeps its
     amplitude; never shorter than ``rise``. ``rel``: noise sigma / |amplitude|.
     """
-    def crossings(window: int) -> tuple[FloatArray, float | None, float | None]:
-        r = (_smooth(yg, window) - initial) / amp
-        return r, _first_crossing(tg, r, 0.1, g0), _first_crossing(tg, r, 0.9, g0)
+    def crossings(window: int) -> tuple[FloatArray, FloatArray, float | None, float | None]:
+        ts, ys, s0 = _smoothed(tg, yg, g0, window)
+        r = (ys - initial) / amp
+        return ts, r, _first_crossing(ts, r, 0.1, s0), _first_crossing(ts, r, 0.9, s0)
 
     rise_span = _span((1.5 * rel / 0.02) ** 2)
-    r, lo_t, hi_t = crossings(rise_span)
+    ts, r, lo_t, hi_t = crossings(rise_span)
     for _ in range(3):
         if lo_t is None or hi_t is None:
             return rise_span, rise_span
@@ -216,16 +238,16 @@ def _smoothing_spans(tg: FloatArray, yg: FloatArray, g0: int, initial: float, am
         if new == rise_span:
             break
         rise_span = new
-        r, lo_t, hi_t = crossings(rise_span)
+        ts, r, lo_t, hi_t = crossings(rise_span)
     if lo_t is None or hi_t is None:
         return rise_span, rise_span
     rise = hi_t - lo_t
-    i_lo = int(np.searchsorted(tg, lo_t))
-    horizon = int(np.searchsorted(tg, lo_t + 6.0 * max(rise, dt)))
+    i_lo = int(np.searchsorted(ts, lo_t))
+    horizon = int(np.searchsorted(ts, lo_t + 6.0 * max(rise, dt)))
     i_pk = i_lo + int(np.argmax(r[i_lo:max(horizon, i_lo + 1)]))
     resid = rel * _noise_gain(rise_span)
     if r[i_pk] - 1.0 > max(5.0 * resid, 1e-3):
-        cap = 0.5 * (tg[i_pk] - lo_t) / dt
+        cap = 0.5 * (ts[i_pk] - lo_t) / dt
     else:
         cap = 2.0 * rise / dt
     wanted = (1.5 * rel / (0.1 * band)) ** 2
@@ -311,13 +333,13 @@ def measure_step(
     w_rise = w_shape = 1
     if abs(amp) >= 5.0 * sigma and sigma > 1e-6 * abs(amp) and dt > 0:
         w_rise, w_shape = _smoothing_spans(tg, yg, g0, initial, amp, sigma / abs(amp), band, dt)
-    r_rise = (_smooth(yg, w_rise) - initial) / amp if amp else yg - initial
-    ys = _smooth(yg, w_shape) if w_shape != w_rise else initial + amp * r_rise
+    tr, yr, r0 = _smoothed(tg, yg, g0, w_rise)  # for the reference-level crossings
+    tsh, ys, s0 = (tr, yr, r0) if w_shape == w_rise else _smoothed(tg, yg, g0, w_shape)
     for _ in range(3):
         amp = final - initial
         if amp == 0.0 or abs(amp) < 5.0 * sigma:
             break
-        settle_t, _ = _settling(tg, (ys - initial) / amp, g0, band)
+        settle_t, _ = _settling(tsh, (ys - initial) / amp, s0, band)
         if settle_t is None:
             break
         tail_from = max(t_step + 0.8 * span, 0.5 * (settle_t + post_t[-1]))
@@ -339,35 +361,35 @@ def measure_step(
             steady_state_error_pct=None, iae=None, ise=None, itae=None, noise_sigma=sigma,
             sample_period=dt, smoothing_samples=w_shape, warnings=tuple(warnings))
 
-    r_rise = (_smooth(yg, w_rise) - initial) / amp
+    r_rise = (yr - initial) / amp
     r = (ys - initial) / amp
     rel = sigma / abs(amp)
     resid = rel * _noise_gain(w_shape)
     lo, hi = (x / 100.0 for x in settings.rise_levels)
-    t_lo = _first_crossing(tg, r_rise, lo, g0)
-    t_hi = _first_crossing(tg, r_rise, hi, g0)
-    t_50 = _first_crossing(tg, r_rise, 0.5, g0)
+    t_lo = _first_crossing(tr, r_rise, lo, r0)
+    t_hi = _first_crossing(tr, r_rise, hi, r0)
+    t_50 = _first_crossing(tr, r_rise, 0.5, r0)
     rise = None if t_lo is None or t_hi is None else t_hi - t_lo
     delay = None if t_50 is None else t_50 - t_step
     if rise is not None and dt > 0 and rise < 2.0 * dt:
         warnings.append(f"the rise spans fewer than 2 samples: rise time {rise * 1e3:.3g} ms"
                         f" is known only to about a sample period ({dt * 1e3:.3g} ms)")
 
-    i_pk = g0 + int(np.argmax(r[g0:]))
+    i_pk = s0 + int(np.argmax(r[s0:]))
     peak_time = peak = None
     overshoot = 0.0
     if i_pk < r.size - 1:
-        tp, rp = _parabolic_peak(tg, r, i_pk)
+        tp, rp = _parabolic_peak(tsh, r, i_pk)
         if rp - 1.0 > max(5.0 * resid, 1e-3):
             peak_time, peak = tp - t_step, initial + rp * amp
             overshoot = 100.0 * (rp - 1.0)
 
-    i_50 = int(np.searchsorted(tg, t_50)) if t_50 is not None else r.size
-    undershoot = max(0.0, -100.0 * float(np.min(r_rise[g0:max(i_50, g0 + 1)])))
+    i_50 = int(np.searchsorted(tr, t_50)) if t_50 is not None else r_rise.size
+    undershoot = max(0.0, -100.0 * float(np.min(r_rise[r0:max(i_50, r0 + 1)])))
     if undershoot <= 100.0 * max(5.0 * rel * _noise_gain(w_rise), 1e-3):
         undershoot = 0.0
 
-    settle_t, _ = _settling(tg, r, g0, band)
+    settle_t, _ = _settling(tsh, r, s0, band)
     settled = False
     settling_time = None
     if settle_t is not None:
