@@ -190,6 +190,7 @@ def _smoothed(tg: FloatArray, yg: FloatArray, g0: int,
     of the uniform grid ``tg``. A long span first averages blocks of k = window / 10
     samples and goes on with every k-th point, the step instant among them (the same
     smoothing to first order, at 1/k^2 of the cost)."""
+    window = min(window, _odd(yg.size // 2, 1) - 2)  # never longer than the data
     if window < 5:
         return tg, yg, g0
     k = (window // 10) | 1  # odd, so the box is centred on its point
@@ -350,8 +351,16 @@ def measure_step(
 
     amp = final - initial
     direction = "up" if (sp_change if sp_change else amp) >= 0 else "down"
-    if amp == 0.0 or abs(amp) < 5.0 * sigma:
+    still = amp == 0.0 or abs(amp) < 5.0 * sigma
+    if still:
         warnings.append("the feedback did not move measurably: no response to measure")
+    elif sp_change and amp / sp_change < 0.01:
+        # Against the setpoint, or by less than 1 % of its change (a window that ends
+        # inside the dead time): what moved is not a response to this step.
+        still = True
+        warnings.append(f"the feedback did not follow the setpoint change (it moved"
+                        f" {100.0 * amp / sp_change:.2g} % of it): no response to measure")
+    if still:
         return StepMetrics(
             t_step=t_step, direction=direction, setpoint_before=setpoint_before,
             setpoint_after=setpoint_after, initial=initial, final=final, amplitude=amp,
@@ -393,9 +402,13 @@ def measure_step(
     settled = False
     settling_time = None
     if settle_t is not None:
-        # In the band for at least one rise time (common practice, no source), 10 samples
-        # and 5 % of the window, ...
-        hold = max(10.0 * dt, 0.05 * span, rise or 0.0)
+        # In the band for at least one rise time (common practice, no source), 10 samples,
+        # 5 % of the window and, when the response overshoots the band, 1.5 times the time
+        # from the low crossing to the peak (about 0.7 of a period: past the next
+        # extremum), ...
+        swing = (0.0 if peak_time is None or t_lo is None or overshoot <= 100.0 * band
+                 else peak_time - (t_lo - t_step))
+        hold = max(10.0 * dt, 0.05 * span, rise or 0.0, 1.5 * swing)
         # ... and the tail that gives the final level not still moving (a straight line
         # fitted to it drifts by less than the band's half-width over the tail).
         sel = post_t >= tail_from
