@@ -61,8 +61,7 @@ def add_parsers(sub: argparse._SubParsersAction) -> None:
                    " anything else is a serial port path or pyserial URL")
     w.add_argument("--headless", action="store_true",
                    help="no UI: one JSON line per finished step on stdout, then a summary")
-    w.add_argument("--profile", metavar="FILE", help="tolerance profile (TOML): a verdict per"
-                   " step")
+    w.add_argument("--profile", metavar="TOML", help="tolerance profile: a verdict per step")
     w.add_argument("--duration", type=positive, metavar="S", help="stop after S seconds")
     w.add_argument("--steps", type=int, metavar="N", help="stop after N steps")
     rpace = w.add_argument_group("replay").add_mutually_exclusive_group()
@@ -161,7 +160,10 @@ def run_watch(args: argparse.Namespace) -> int:
     profile = load_profile(args.profile) if args.profile else None
     settings = analysis_settings(args, profile)
     decoder = decoder_from_args(args)
-    replay = Path(args.source).is_file()
+    # An existing path is a file to replay unless it is a character device (a serial port);
+    # a FIFO, a folder or a socket is refused there, with one line.
+    path = Path(args.source)
+    replay = path.exists() and not path.is_char_device()
     if replay:
         source = ReplaySource(Path(args.source), speed=None if args.fast else args.speed)
     else:
@@ -183,13 +185,13 @@ def run_watch(args: argparse.Namespace) -> int:
 
 
 def run_ports(args: argparse.Namespace) -> int:
-    from rich.console import Console
     from rich.table import Table
 
+    from livestep.sinks.terminal import make_console
     from livestep.sources.ports import list_serial_ports
 
     ports = list_serial_ports()
-    console = Console()
+    console = make_console()
     if not ports:
         console.print("no serial ports found (pseudo-terminals are not listed)")
         return EXIT_OK

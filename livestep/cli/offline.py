@@ -11,7 +11,7 @@ from livestep.cli.options import (
     analysis_settings,
     parse_tag,
 )
-from livestep.errors import EXIT_OK, InputError
+from livestep.errors import EXIT_BAD_INPUT, EXIT_OK, InputError, one_line
 from livestep.judge.profile import load_profile
 from livestep.judge.verdict import gate_status, verdict_summary
 from livestep.sources.recording import ColumnMap, RecordingReader, read_ahead
@@ -83,7 +83,18 @@ def _reader_notes(reader: RecordingReader) -> list[str]:
         notes.append(f"dropped {st.repeated_time} rows repeating the previous timestamp")
     if not reader.has_setpoint:
         notes.append("no setpoint column: steps found from the feedback alone")
+    if reader.damage is not None:
+        notes.append(f"only the lines before the damage were read ({reader.damage})")
     return notes
+
+
+def _damaged(reader: RecordingReader) -> int | None:
+    """Exit status 2 with one line when the recording was damaged part way (its steps
+    before the damage have been shown), else ``None``."""
+    if reader.damage is None:
+        return None
+    print(f"livestep: error: {reader.damage}", file=sys.stderr)
+    return EXIT_BAD_INPUT
 
 
 def run_analyze(args: argparse.Namespace) -> int:
@@ -119,16 +130,21 @@ def run_analyze(args: argparse.Namespace) -> int:
         from livestep.reports.tables import write_csv
         write_csv(results, sys.stdout, verdicts)
     else:
-        from rich.console import Console
-
         from livestep.reports.tables import render_guidance, render_statistics, render_table
-        console = Console()
-        render_table(results, console, title=f"{args.file}: {len(results)} steps,"
-                     f" {st.good} samples", verdicts=verdicts)
+        from livestep.sinks.terminal import make_console
+        console = make_console()
+        from rich.markup import escape
+
+        render_table(results, console, title=escape(f"{one_line(args.file)}: {len(results)}"
+                                                    f" steps, {st.good} samples"),
+                     verdicts=verdicts)
         if len(results) >= 2:
             render_statistics(stats, console)
         if profile is not None:
             render_guidance(results, profile, band, console)
+    damaged = _damaged(reader)
+    if damaged is not None:
+        return damaged
     return EXIT_OK if verdicts is None else gate_status(verdicts)
 
 
@@ -142,7 +158,10 @@ def run_compare(args: argparse.Namespace) -> int:
     for k in range(2):
         path = args.files[min(k, len(args.files) - 1)]
         if path not in loaded:
-            loaded[path] = _read_results(path, args, settings)[0]
+            found, reader = _read_results(path, args, settings)
+            if reader.damage is not None:  # a comparison of part of a file would mislead
+                raise InputError(reader.damage)
+            loaded[path] = found
         results, label = loaded[path], path
         if args.tags:
             tag = parse_tag(args.tags[k])
@@ -162,10 +181,9 @@ def run_compare(args: argparse.Namespace) -> int:
         from livestep.reports.tables import comparison_document, write_json
         write_json(comparison_document(cmp), sys.stdout)
     else:
-        from rich.console import Console
-
         from livestep.reports.tables import render_comparison
-        render_comparison(cmp, Console())
+        from livestep.sinks.terminal import make_console
+        render_comparison(cmp, make_console())
     return EXIT_OK
 
 
@@ -182,6 +200,7 @@ def run_report(args: argparse.Namespace) -> int:
 
     info = read_session_info(args.file, metadata=reader.metadata, samples=st.good,
                              first_t=st.first_time, last_t=st.last_time, notes=tuple(notes))
+    info = replace(info, source=one_line(info.source))  # a non-UTF-8 file name, shown
     name = Path(args.file).name.removesuffix(".gz").removesuffix(".csv")
     out = Path(args.output or f"{name}-report.html")
     write_report(out, results, info, profile, args.png, measure=settings.measure)
@@ -189,5 +208,6 @@ def run_report(args: argparse.Namespace) -> int:
     if profile is not None:
         from livestep.judge.verdict import judge
         summary = verdict_summary([judge(r, profile).verdict for r in results], profile.name)
-    print(f"livestep: wrote {out} ({summary})", file=sys.stderr)
-    return EXIT_OK
+    print(f"livestep: wrote {one_line(str(out))} ({summary})", file=sys.stderr)
+    damaged = _damaged(reader)
+    return EXIT_OK if damaged is None else damaged

@@ -67,6 +67,7 @@ from numpy.typing import ArrayLike, NDArray
 from livestep.decode.counters import LinkCounters
 from livestep.decode.timebase import ClockSettings, Timebase
 from livestep.steps.samples import SampleChunk
+from livestep.steps.tags import clean_text
 
 __all__ = [
     "DEFAULT_CLOCK",
@@ -340,6 +341,7 @@ class FrameDecoder:
         self._pending_gaps = 0  # discontinuities after the last sample frame, unsettled
         self._pending_lost = 0
         self._raw_samples = 0  # sample frames passed to the timebase so far
+        self._live = False  # joined mid-stream (rejoin): the last frame may be unfinished
 
     # -- public ------------------------------------------------------------------------
     def feed(self, data: bytes) -> list[SampleChunk]:
@@ -361,10 +363,24 @@ class FrameDecoder:
         self._keep_tail(buf[last + 1 :])
         return self._decode(buf[: last + 1], final=False)
 
+    def rejoin(self) -> None:
+        """A live link was (re)opened: the stream is joined mid-frame. The unfinished frame
+        held from before is dropped (``skipped``), the bytes before the next delimiter are
+        treated as the end of a frame sent before (see ``resyncs``), and at :meth:`flush` the
+        unfinished last frame is dropped (``skipped``, not ``truncated frame``)."""
+        if self._tail:
+            self.counters.skipped += 1
+        self._tail, self._discarding, self._synced = b"", False, False
+        self._live = True
+
     def flush(self) -> list[SampleChunk]:
         """End of stream: decode a last frame that lacks its delimiter (else count it as
-        ``truncated frame``) and settle pending sequence gaps."""
+        ``truncated frame``; a live link's unfinished frame is dropped, ``skipped``) and
+        settle pending sequence gaps."""
         out: list[SampleChunk] = []
+        if self._tail and self._live:
+            self.counters.skipped += 1
+            self._tail = b""
         if self._tail and not self._discarding:
             tail, self._tail = self._tail, b""
             out = self._decode(tail + b"\x00", final=True)
@@ -537,7 +553,7 @@ class FrameDecoder:
             else:
                 read.status[i] = _LOG
                 text = payload[_HEADER : size - 2].tobytes().decode("utf-8", errors="replace")
-                read.logs.append((i, text))
+                read.logs.append((i, clean_text(text)))
 
     def _emit(self, read: _Read) -> list[SampleChunk]:
         """Sequence check, timebase and chunking of one batch's frames."""

@@ -2,67 +2,80 @@
 
 Accepts delimited lines (comma, tab, semicolon or spaces; with or without a
 header) and ``name=value`` / ``name:value`` pairs. The format is detected from
-the first eight data-looking lines unless given. Lines split across reads,
-``\\r\\n``, non-UTF-8 bytes, overlong lines (bounded by ``max_line``), wrong
-field counts, ``nan`` and firmware log lines are skipped, counted by kind in
-:class:`~livestep.decode.counters.LinkCounters`, and log lines are kept (the
-last ``max_logs``) for display. Decisions depend only on the bytes, never on
-how they were split into reads.
+the first eight data-looking lines unless given; ``#`` comment lines (a recording's
+own ``# start:`` / ``# key: value`` metadata) never count as data and never decide the
+format. The header is the line just before the first data line (banner lines before it
+are logged); a space-separated candidate that names none of the asked-for columns is
+taken for a banner too. :attr:`TextDecoder.decision` says what was decided. Lines split
+across reads, ``\\r\\n``, a leading UTF-8 byte order mark, non-UTF-8 bytes, overlong
+lines (over ``max_line`` bytes, wherever the reads split them), wrong field counts,
+``nan`` and firmware log lines are skipped, counted by kind in
+:class:`~livestep.decode.counters.LinkCounters`, and log lines are kept (the last
+``max_logs``) for display. Decisions depend only on the bytes, never on how they were
+split into reads.
 
 A line that is one ``name=value`` pair, or several without spaces (``gains=B``,
 ``kp = 2.5``, ``kp=1.2 ki=30``), is a note (:mod:`livestep.steps.tags`) in a delimited
 stream, and in a ``name=value`` stream when none of its names is a column (else it
 is a damaged data line); so is a recording's ``# note: <t> name=value`` line
-on replay: it is stamped with the time of the last sample before it (of the first
-sample, when none came before) and collected in :meth:`TextDecoder.take_notes`.
+on replay, and a non-empty cell of a recording's ``note`` column: it is stamped with the
+time of the last sample before it (a note cell: of its own row; of the first sample, when
+none came before) and collected in :meth:`TextDecoder.take_notes`. Control characters in
+a note are escaped; notes before the first sample keep one value per name.
+
+A live link joins a stream mid-line (:meth:`TextDecoder.rejoin`, on every port open): the
+first line is dropped unless it is plainly not data (a banner, a header, a comment), and
+the last, unfinished line is dropped at the end; both count as ``skipped``, not as bad.
+
+Why this module is long: one stateful decoder whose carry, detection buffer, layout,
+notes and counters are one stream's state; the layout decision itself is
+:mod:`livestep.decode.layout`, the line tests :mod:`livestep.decode.lines`.
 """
 
 from __future__ import annotations
 
 import re
 from collections import deque
-from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import NDArray
 
 from livestep.decode.counters import LinkCounters
+from livestep.decode.layout import (
+    Layout,
+    TextFormat,
+    detect_layout,
+    is_data_line,
+    note_header,
+    split,
+)
+from livestep.decode.lines import (
+    cut_column,
+    drop_long_lines,
+    find_pairs,
+    is_comment,
+    is_garbage,
+    looks_like_data,
+)
 from livestep.decode.numparse import is_number, parse_block
 from livestep.decode.timebase import ClockSettings, Timebase
-from livestep.errors import InputError
 from livestep.steps.samples import SampleChunk
-from livestep.steps.tags import NOTE_PREFIX, Note, parse_notes
+from livestep.steps.tags import (
+    MAX_NOTE_NAMES,
+    Note,
+    clean_text,
+    parse_note,
+    parse_notes,
+    parse_recorded_note,
+)
 
-__all__ = ["TextDecoder", "TextFormat"]
+__all__ = ["TextDecoder", "TextFormat", "describe"]
 
 DELIMITERS = {"comma": ",", "tab": "\t", "semicolon": ";", "space": " "}
 _DETECT_LINES = 8
-_NUMBER = rb"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?|[-+]?(?:nan|inf)"
-_PAIR = re.compile(rb"([A-Za-z_][\w.]*)\s*[=:]\s*(" + _NUMBER + rb")", re.IGNORECASE)
-_SPACES = re.compile(rb"[ \t]+")
-
-
-@dataclass(frozen=True, kw_only=True)
-class TextFormat:
-    """How to read the lines. ``delimiter``: one of , \\t ; or a space, ``None`` to detect;
-    ``pairs``: ``True`` for name=value lines, ``None`` to detect; ``names``: column names
-    when the stream has no header; ``time``, ``setpoint``, ``feedback``: column roles by
-    name or 1-based position (``time=None``: no device time, stamp from ``clock.host_rate``;
-    ``setpoint=None``: use a column named ``setpoint`` if any)."""
-
-    delimiter: str | None = None
-    pairs: bool | None = None
-    names: tuple[str, ...] | None = None
-    time: str | None = "t"
-    setpoint: str | None = None
-    feedback: str = "feedback"
-    max_line: int = 4096
-
-
-def _split(line: bytes, delim: bytes) -> list[bytes]:
-    if delim == b" ":
-        return line.split()
-    return [c.strip() for c in line.split(delim)]
+_MAX_PENDING = 200  # candidate lines held before deciding anyway
+_SPACES = re.compile(rb"[ \t]+")  # one character class repeated: linear
+_BOM = b"\xef\xbb\xbf"
 
 
 class TextDecoder:
@@ -74,19 +87,28 @@ class TextDecoder:
         self.counters = counters if counters is not None else LinkCounters()
         self.timebase = Timebase(clock if clock is not None else ClockSettings(), self.counters)
         self.logs: deque[str] = deque(maxlen=max_logs)
+        self.decision: str | None = None  # what format detection decided, in words
+        self.columns: list[str] = []
         self._carry = b""
         self._skipping = False
-        self._pending: list[bytes] = []  # lines seen before the format is known
+        self._at_start = True
+        self._live = False  # a link joined mid-stream: partial first and last lines
+        self._first_partial = False
+        self._pending: list[bytes] = []  # candidate lines seen before the format is known
         self._numeric_seen = 0
+        self._note_header: tuple[int, int] | None = None  # (note column, cells) if seen
+        self._replay: list[bytes] = []
+        self._layout: Layout | None = None
         self._delim: bytes | None = None
         self._pairs = False
-        self._names: list[str] | None = None
         self._roles: tuple[int | None, int, int | None] | None = None
         self._extra: list[tuple[str, int]] = []
         self._header_line: bytes | None = None
-        self.columns: list[str] = []
+        self._note_col: int | None = None  # index of a note column among the cells
+        self._ncells = 0  # cells per line, note column included
         self._notes: list[Note] = []
-        self._unstamped: list[tuple[str, str]] = []  # notes seen before the first sample
+        self._unstamped: dict[str, str] = {}  # notes before the first sample, by name
+        self._note_names: set[str] = set()
         self._last_t: float | None = None
 
     # -- public -------------------------------------------------------------------
@@ -94,6 +116,16 @@ class TextDecoder:
     def ready(self) -> bool:
         """True once the line format is known."""
         return self._roles is not None
+
+    def rejoin(self) -> None:
+        """A live link was (re)opened: the stream is joined mid-line. The unfinished line
+        held from before is dropped, the next first line is dropped unless it is plainly
+        not data, and at :meth:`flush` the unfinished last line is dropped (all counted as
+        ``skipped``)."""
+        if self._carry.strip():
+            self.counters.skipped += 1
+        self._carry, self._skipping = b"", False
+        self._live = self._first_partial = True
 
     def feed(self, data: bytes) -> list[SampleChunk]:
         """Decode the next bytes of the stream; returns the samples completed."""
@@ -108,7 +140,11 @@ class TextDecoder:
         cut = buf.rfind(b"\n") + 1
         self._carry = buf[cut:]
         if len(self._carry) > self.fmt.max_line:
-            self.counters.bad["overlong line"] += 1
+            if self._first_partial and not cut:
+                self._first_partial = False
+                self.counters.skipped += 1
+            else:
+                self.counters.bad["overlong line"] += 1
             self._carry = b""
             self._skipping = True
         return self._lines(buf[:cut]) if cut else []
@@ -119,8 +155,13 @@ class TextDecoder:
         return notes
 
     def flush(self) -> list[SampleChunk]:
-        """End of stream: decode a last line without a newline."""
+        """End of stream: decode a last line without a newline (a live link's unfinished
+        line is dropped instead)."""
         tail, self._carry = self._carry, b""
+        if self._live:
+            if tail.strip():
+                self.counters.skipped += 1
+            tail = b""
         out = self._lines(tail + b"\n") if tail.strip() else []
         if not self.ready and self._pending and self._decide():
             out += self._decode(b"")
@@ -128,6 +169,22 @@ class TextDecoder:
 
     # -- lines --------------------------------------------------------------------
     def _lines(self, block: bytes) -> list[SampleChunk]:
+        """Complete lines (each ending in a newline), as received."""
+        if self._first_partial:
+            self._first_partial = self._at_start = False
+            nl = block.find(b"\n")
+            first, block = block[:nl], block[nl + 1:]
+            if self._partial(first):
+                self.counters.skipped += 1
+            elif first.strip():
+                block = first + b"\n" + block
+        if self._at_start and block:
+            self._at_start = False
+            if block.startswith(_BOM):
+                block = block[len(_BOM):]
+        block, long = drop_long_lines(block, self.fmt.max_line)
+        if long:
+            self.counters.bad["overlong line"] += long
         if b"\r" in block:
             block = block.replace(b"\r", b"")
         if self.ready:
@@ -136,129 +193,73 @@ class TextDecoder:
         for k, line in enumerate(lines):
             if not line.strip():
                 continue
-            self._pending.append(line)
-            if self._looks_numeric(line):
-                self._numeric_seen += 1
-            if self._numeric_seen >= _DETECT_LINES or len(self._pending) > 200:
+            if not self._candidate(line):
+                continue
+            if self._numeric_seen >= _DETECT_LINES or len(self._pending) > _MAX_PENDING:
                 if self._decide():
                     return self._decode(b"".join(ln + b"\n" for ln in lines[k + 1:]))
         return []
 
     @staticmethod
-    def _looks_numeric(line: bytes) -> bool:
-        if len(_PAIR.findall(line)) >= 2:
+    def _partial(first: bytes) -> bool:
+        """Whether a first line joined mid-stream is dropped: anything that may be the cut
+        end of a data line (numbers, a numeric pair) or is garbage; a banner, a header or
+        a comment is kept."""
+        line = first.replace(b"\r", b"").strip()
+        if not line or is_comment(line):
+            return False
+        if looks_like_data(line) or find_pairs(line):
             return True
-        cells = [c for c in re.split(rb"[,;\s]+", line.strip()) if c]
-        return len(cells) >= 1 and all(is_number(c) for c in cells)
+        return is_garbage(line.decode("utf-8", "replace"))
+
+    def _candidate(self, line: bytes) -> bool:
+        """Take one line while the format is unknown; ``True`` when it was held for the
+        decision. Comments and notes are handled at once (in stream order), so a flood of
+        them is never held in memory; a segment marker waits with the data lines."""
+        stripped = line.strip()
+        if is_comment(stripped) and not stripped.startswith(b"# segment"):
+            self._comment(stripped)
+            return False
+        if not is_comment(stripped) and not looks_like_data(stripped):
+            if self._note_header is None:
+                self._note_header = note_header(stripped, self.fmt)
+            notes = self._note(stripped) if self._note_header is None else None
+            if notes is not None:
+                for name, value in notes:
+                    self._stamp_note(name, value)
+                return False
+        self._pending.append(line)
+        if is_data_line(stripped, self._note_header):
+            self._numeric_seen += 1
+        return True
 
     def _decide(self) -> bool:
-        """Fix delimiter, header and column roles from the pending lines; ``False`` (and
-        the pending lines counted as not data) when they hold no data to go by."""
-        fmt = self.fmt
+        """Fix the layout from the pending lines (:mod:`livestep.decode.layout`); ``False``
+        (and the pending lines counted as not data) when they hold no data to go by."""
         lines, self._pending = self._pending, []
-        numeric, self._numeric_seen = self._numeric_seen, 0
-        pairs = fmt.pairs
-        if pairs is None:
-            pairs = sum(len(_PAIR.findall(ln)) >= 2 for ln in lines) >= max(1, numeric // 2)
-        names: list[str] = []
-        headerless = False
-        if pairs:
-            first = next((ln for ln in lines if len(_PAIR.findall(ln)) >= 2), None)
-            if first is not None:
-                names = [m[0].decode() for m in _PAIR.findall(first)]
-        else:
-            delim = (fmt.delimiter.encode() if fmt.delimiter is not None
-                     else self._detect_delimiter(lines))
-            widths = [len(cells) for ln in lines
-                      if (cells := _split(ln, delim)) and all(is_number(c) for c in cells)]
-            ncol = max(set(widths), key=widths.count) if widths else 0
-            if ncol:
-                self._delim = delim
-                header = self._find_header(lines, delim, ncol)
-                if fmt.names is not None:
-                    names = list(fmt.names)
-                elif header is not None:
-                    names = header
-                else:
-                    names, headerless = [f"col{i + 1}" for i in range(ncol)], True
-        if len(names) < (1 if fmt.time is None else 2):
+        self._numeric_seen = 0
+        layout = detect_layout(lines, self.fmt, self._note_header)
+        if layout is None:
             for ln in lines:
-                self._not_data(ln)
+                if is_comment(ln):
+                    self._comment(ln.strip())
+                else:
+                    self._not_data(ln.strip())
             return False
-        self._pairs = bool(pairs)
-        self.columns = names
-        self._roles = self._resolve_roles(names, headerless)
+        self._layout = layout
+        self._pairs, self._delim, self.columns = layout.pairs, layout.delim, layout.columns
+        self._roles, self._extra = layout.roles, layout.extra
+        self._header_line, self._note_col = layout.header_line, layout.note_col
+        self._ncells = layout.ncells
+        self.decision = layout.decision
         self._replay = lines
         return True
 
-    def _find_header(self, lines: list[bytes], delim: bytes, ncol: int) -> list[str] | None:
-        """The last line before the first data line whose cells are all names."""
-        header = None
-        for ln in lines:
-            cells = _split(ln, delim)
-            if all(is_number(c) for c in cells):
-                break
-            if len(cells) == ncol and all(re.fullmatch(rb"[A-Za-z_][\w .\[\]/%-]*", c)
-                                          for c in cells):
-                header, self._header_line = [c.decode() for c in cells], ln.strip()
-        return header
-
-    def _detect_delimiter(self, lines: list[bytes]) -> bytes:
-        best, best_score = b",", -1
-        for d in (b",", b"\t", b";", b" "):
-            widths = [len(cells) for ln in lines
-                      if len(cells := _split(ln, d)) >= 2 and all(is_number(c) for c in cells)]
-            score = max((widths.count(w) for w in set(widths)), default=0)
-            if score > best_score:
-                best, best_score = d, score
-        return best
-
-    def _resolve_roles(self, names: list[str],
-                       headerless: bool) -> tuple[int | None, int, int | None]:
-        """Column indices of time, feedback and setpoint: by name, by 1-based position, or
-        (headerless streams) by the usual order [time,] [setpoint,] feedback."""
-        fmt = self.fmt
-        n = len(names)
-
-        def find(name: str | None, position: int | None) -> int | None:
-            if name is None:
-                return None
-            if name in names:
-                return names.index(name)
-            if name.isdigit() and 1 <= int(name) <= n:
-                return int(name) - 1
-            if headerless and position is not None and position < n:
-                return position
-            return None
-
-        ti = find(fmt.time, 0)
-        if fmt.time is not None and ti is None:
-            raise InputError(f"the stream has no time column {fmt.time!r} (columns:"
-                             f" {', '.join(names)}); name it, or give the sample rate to stamp"
-                             " samples on the host")
-        k = 0 if ti is None else 1
-        sp_pos, fb_pos = (k, k + 1) if n >= k + 2 else (None, k)
-        fi = find(fmt.feedback, fb_pos)
-        if fi is None:
-            raise InputError(f"the stream has no feedback column {fmt.feedback!r} (columns:"
-                             f" {', '.join(names)})")
-        if fmt.setpoint is not None:
-            si = find(fmt.setpoint, sp_pos)
-            if si is None:
-                raise InputError(f"the stream has no setpoint column {fmt.setpoint!r}")
-        else:
-            si = names.index("setpoint") if "setpoint" in names else (
-                sp_pos if headerless else None)
-        used = {i for i in (ti, fi, si) if i is not None}
-        self._extra = [(name, i) for i, name in enumerate(names) if i not in used]
-        return ti, fi, si
-
     # -- decoding -----------------------------------------------------------------
     def _decode(self, block: bytes) -> list[SampleChunk]:
-        replay = getattr(self, "_replay", None)
-        if replay:
+        if self._replay:
+            block = b"\n".join(self._replay) + b"\n" + block
             self._replay = []
-            block = b"\n".join(replay) + b"\n" + block
         if not block:
             return []
         ncol = len(self.columns)
@@ -268,26 +269,63 @@ class TextDecoder:
                 return self._emit(fast)
         out: list[SampleChunk] = []
         rows: list[list[float]] = []
-        for line in block.split(b"\n"):
-            if line.startswith(b"# segment"):  # a restart marked by the recorder
-                out += self._emit(np.array(rows, dtype=float).reshape(-1, ncol))
+
+        def emit() -> None:
+            nonlocal rows
+            if rows:
+                out.extend(self._emit(np.array(rows, dtype=float).reshape(-1, ncol)))
                 rows = []
-                self.timebase.new_segment()
+
+        for raw in block.split(b"\n"):
+            line = raw.strip()
+            if not line:
                 continue
-            note = self._note(line)
-            if note is not None:
-                out += self._emit(np.array(rows, dtype=float).reshape(-1, ncol))
-                rows = []
-                for name, value in note:
-                    self._stamp_note(name, value)
+            if line[:1] == b"#":
+                emit()
+                self._comment(line)
                 continue
+            if line == self._header_line:
+                continue
+            cell = b""
+            if self._note_col is not None:
+                cells = line.split(b",")
+                if len(cells) == self._ncells:
+                    cell = cells.pop(self._note_col).strip()
+                    line = b",".join(cells)
+            else:
+                notes = self._note(line)
+                if notes is not None:
+                    emit()
+                    for name, value in notes:
+                        self._stamp_note(name, value)
+                    continue
             row = self._parse_line(line, ncol)
             if row is not None:
                 rows.append(row)
-        return out + self._emit(np.array(rows, dtype=float).reshape(-1, ncol))
+            if cell:  # a note cell: at its own row's time
+                emit()
+                text = cell.decode("utf-8", "replace")
+                self._stamp_note(*(parse_note(text) or ("note", text)))
+        emit()
+        return out
+
+    def _comment(self, line: bytes) -> None:
+        """A ``#`` line: a recorded segment marker or note, else a log line."""
+        if line.startswith(b"# segment"):  # a restart marked by the recorder
+            self.timebase.new_segment()
+            return
+        note = parse_recorded_note(line.decode("utf-8", "replace"))
+        if note is not None:  # a recording replayed: the time is re-stamped
+            self._stamp_note(note.name, note.value)
+            return
+        self._not_data(line)
 
     def _parse_fast(self, block: bytes, ncol: int) -> NDArray[np.float64] | None:
         delim = self._delim or b","
+        if self._note_col is not None:
+            block, cells = cut_column(block, self._note_col, self._ncells, 0)
+            if cells:
+                return None
         if delim == b" " or delim == b"\t":
             block = _SPACES.sub(b",", block).replace(b",\n", b"\n").replace(b"\n,", b"\n")
             if block.startswith(b","):
@@ -299,18 +337,14 @@ class TextDecoder:
         return parse_block(block, block.count(b"\n"), ncol)
 
     def _parse_line(self, line: bytes, ncol: int) -> list[float] | None:
-        line = line.strip()
-        if not line or line == self._header_line:
-            return None
-        if len(line) > self.fmt.max_line:
-            self.counters.bad["overlong line"] += 1
+        if line == self._header_line:
             return None
         if self._pairs:
-            found = {k.decode(): float(v) for k, v in _PAIR.findall(line)}
+            found = {k.decode(): float(v) for k, v in find_pairs(line)}
             if found and set(found) >= {self.columns[i] for i in self._role_indices()}:
                 return [found.get(n, np.nan) for n in self.columns]
             return self._not_data(line)
-        cells = _split(line, self._delim or b",")
+        cells = split(line, self._delim or b",")
         if not all(is_number(c) for c in cells):
             return self._not_data(line)
         if len(cells) != ncol:
@@ -330,9 +364,7 @@ class TextDecoder:
             text = line.decode("utf-8").strip()
         except UnicodeDecodeError:
             return None
-        if text.startswith(NOTE_PREFIX):  # a recording replayed: the time is re-stamped
-            text = text[len(NOTE_PREFIX):].strip().partition(" ")[2]
-        elif text.startswith("#"):
+        if text.startswith("#"):
             return None
         pairs = parse_notes(text)
         if pairs is None or (self._pairs and any(name in self.columns for name, _ in pairs)):
@@ -340,9 +372,16 @@ class TextDecoder:
         return pairs
 
     def _stamp_note(self, name: str, value: str) -> None:
+        if name not in self._note_names:
+            if len(self._note_names) >= MAX_NOTE_NAMES:
+                self.counters.bad["note names over the limit"] += 1
+                return
+            self._note_names.add(name)
+        value = clean_text(value)
         self.counters.notes += 1
-        if self._last_t is None:
-            self._unstamped.append((name, value))
+        if self._last_t is None:  # one value per name until the first sample stamps them
+            self._unstamped.pop(name, None)
+            self._unstamped[name] = value
         else:
             self._notes.append(Note(self._last_t, name, value))
 
@@ -356,12 +395,11 @@ class TextDecoder:
         except UnicodeDecodeError:
             self.counters.bad["garbage"] += 1
             return None
-        printable = sum(ch.isprintable() for ch in text)
-        if printable < 0.9 * len(text) or not re.search(r"[A-Za-z]{2}", text):
+        if is_garbage(text):
             self.counters.bad["garbage"] += 1
             return None
         self.counters.log_lines += 1
-        self.logs.append(text)
+        self.logs.append(clean_text(text))
         return None
 
     def _emit(self, data: NDArray[np.float64]) -> list[SampleChunk]:
@@ -380,8 +418,8 @@ class TextDecoder:
         if stamped.t.size:
             if self._unstamped:
                 first = float(stamped.t[0])
-                self._notes += [Note(first, n, v) for n, v in self._unstamped]
-                self._unstamped = []
+                self._notes += [Note(first, n, v) for n, v in self._unstamped.items()]
+                self._unstamped = {}
             self._last_t = float(stamped.t[-1])
         self.counters.samples += data.shape[0]
         bounds = [0, *stamped.segment_starts, data.shape[0]]
@@ -405,5 +443,3 @@ def describe(fmt: TextDecoder) -> str:
         return "text, format not yet detected"
     kind = "name=value pairs" if fmt._pairs else f"delimiter {fmt._delim!r}"
     return f"text, {kind}, columns {','.join(fmt.columns)}"
-
-

@@ -107,6 +107,32 @@ class Timebase:
             self._last_t = float(t[-1]) if n else self._last_t
             return Stamped(t, np.ones(n, dtype=bool), [])
         raw = np.asarray(raw, dtype=float)
+        # Causal: until the median period is fixed, a backwards step is decided with the
+        # period of the samples before it alone, so the result does not depend on how the
+        # stream was split into reads (a forward step needs no period at all).
+        parts: list[Stamped] = []
+        while raw.size and self._period is None:
+            prev = self._last_raw if self._last_raw is not None else raw[0]
+            back = np.flatnonzero(np.diff(raw, prepend=prev) < 0)
+            if back.size == 0:
+                break
+            j = int(back[0])
+            if j:
+                parts.append(self._stamp(raw[:j]))
+            parts.append(self._stamp(raw[j:j + 1]))
+            raw = raw[j + 1:]
+        if raw.size or not parts:
+            parts.append(self._stamp(raw))
+        if len(parts) == 1:
+            return parts[0]
+        starts, kept = [], 0
+        for part in parts:
+            starts += [kept + s for s in part.segment_starts]
+            kept += part.t.size
+        return Stamped(np.concatenate([x.t for x in parts]),
+                       np.concatenate([x.keep for x in parts]), starts)
+
+    def _stamp(self, raw: NDArray[np.float64]) -> Stamped:
         if raw.size == 0:
             return Stamped(raw, np.ones(0, dtype=bool), [])
         prev = self._last_raw if self._last_raw is not None else raw[0]

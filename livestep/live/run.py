@@ -27,6 +27,8 @@ from livestep.live.session import AutoDecoder, Decoder, Session, replay_file
 from livestep.live.watch import Driver, StepEntry, Watch, step_line_record
 from livestep.sinks.base import Sink
 from livestep.sinks.console import ConsoleSink, JsonLinesSink, counters_table
+from livestep.sinks.terminal import make_console
+from livestep.sources.files import open_file
 from livestep.sources.serial_port import PortSettings, SerialReader
 from livestep.steps.analysis import AnalysisSettings
 
@@ -53,7 +55,7 @@ def metadata_for(source: str, decoder: Decoder):
 
 
 def _step_sink(json_lines: bool) -> Sink:
-    return JsonLinesSink(sys.stdout) if json_lines else ConsoleSink(Console(highlight=False))
+    return JsonLinesSink(sys.stdout) if json_lines else ConsoleSink(make_console(highlight=False))
 
 
 @contextlib.contextmanager
@@ -88,22 +90,38 @@ def run_until_done(watch: Watch, stop: threading.Event | None = None) -> None:
             pass
 
 
-def exit_status(error: str | None) -> int:
-    """The exit status of a session that ended with ``error`` (``None``: success)."""
+def exit_status(error: str | None, status: int | None = None) -> int:
+    """The exit status of a session that ended with ``error`` (``None``: success); ``status``
+    when the session knows it (a snapshot's ``error_status``)."""
     if error is None:
         return EXIT_OK
+    if status:
+        return status
     return EXIT_FAIL if error.startswith("internal error") else EXIT_BAD_INPUT
 
 
-class _Announce(Sink):
-    """Says where the recording goes, once the port is open."""
+class _Messages(Sink):
+    """Says on stderr what the session wants the user to know (the stream format)."""
+
+    def __init__(self, console: Console) -> None:
+        self.console = console
+
+    def on_message(self, text: str) -> None:
+        self.console.print(f"livestep: {text}", markup=False, highlight=False,
+                           soft_wrap=True)
+
+
+class _Announce(_Messages):
+    """Says where the recording goes, once the port is open (and the stream format)."""
 
     def __init__(self, watch: Watch, console: Console) -> None:
-        self.watch, self.console, self.said = watch, console, False
+        super().__init__(console)
+        self.watch, self.said = watch, False
 
     def on_state(self, state: str) -> None:
         if not self.said and self.watch.recorder is not None:
-            self.console.print(f"recording to {self.watch.recorder.path}")
+            self.console.print(f"recording to {self.watch.recorder.path}", markup=False,
+                               highlight=False)
         self.said = True
 
 
@@ -118,7 +136,7 @@ def run_live(port: PortSettings, decoder: Decoder, settings: AnalysisSettings, *
     quit); returns the exit status.
     ``sinks`` listen besides the step printer (``print_steps``) and the recorder; ``source``
     names the link in the recording."""
-    console = Console(stderr=True, highlight=False)
+    console = make_console(stderr=True, highlight=False)
     name = source or port.url
     watch = Watch(SerialReader(port), decoder, settings, source_name=name, record=record,
                   raw=raw, metadata=metadata_for(name, decoder), driver=driver,
@@ -127,16 +145,19 @@ def run_live(port: PortSettings, decoder: Decoder, settings: AnalysisSettings, *
                   duration=duration)
     watch.session.sinks.insert(0, _Announce(watch, console))
     run_until_done(watch, stop)
-    error = watch.snapshot().error
-    if error:
-        console.print(f"livestep: error: {error}")
+    snap = watch.snapshot()
+    error = snap.error
     console.print(counters_table(watch.session.counters))
     recorder = watch.recorder
     if recorder is not None and recorder.rows:
-        console.print(f"recorded {recorder.rows} samples to {recorder.path}")
+        console.print(f"recorded {recorder.rows} samples to {recorder.path}", markup=False,
+                      highlight=False)
     elif recorder is not None:
         console.print("no samples received: no recording written")
-    status = exit_status(error)
+    if error:  # last, where it is seen: one line
+        console.print(f"livestep: error: {error}", markup=False, highlight=False,
+                      soft_wrap=True)
+    status = exit_status(error, snap.error_status)
     if status == EXIT_OK and driver is not None:
         status = driver.exit_status
     return status
@@ -153,19 +174,20 @@ def run_headless(watch: Watch, out: IO[str]) -> int:
         out.flush()
 
     watch.on_step = on_step
-    watch.session.sinks.insert(0, _Announce(watch, Console(stderr=True, highlight=False)))
+    watch.session.sinks.insert(0, _Announce(watch, make_console(stderr=True, highlight=False)))
     run_until_done(watch)
     snap = watch.snapshot()
     verdicts = Counter(e.verdict.verdict for e in snap.steps if e.verdict is not None)
     summary = {"source": snap.source, "steps": len(snap.steps), "verdicts": dict(verdicts),
                "profile": snap.profile, "samples": snap.counters["samples"],
                "counters": snap.counters, "recording": snap.recording,
-               "results_log": snap.results_log, "error": snap.error}
+               "results_log": snap.results_log, "error": snap.error,
+               "stream_format": snap.stream_format}
     out.write(json.dumps({"summary": summary}, allow_nan=False) + "\n")
     out.flush()
     if snap.error:
         print(f"livestep: error: {snap.error}", file=sys.stderr)
-        return exit_status(snap.error)
+        return exit_status(snap.error, snap.error_status)
     if watch.profile is None:
         return EXIT_OK
     return gate_status([e.verdict for e in snap.steps])
@@ -173,17 +195,25 @@ def run_headless(watch: Watch, out: IO[str]) -> int:
 
 def run_replay(path: Path, decoder: Decoder, settings: AnalysisSettings, *,
                speed: float | None, json_doc: bool = False, json_lines: bool = False) -> int:
-    """Play a recording (or raw capture) through the live path; returns the exit status."""
-    if not path.is_file():
-        raise InputError(f"{path}: no such file")
-    sinks = [] if json_doc else [_step_sink(json_lines)]
+    """Play a recording (or raw capture) through the live path; returns the exit status.
+    A file that stops being readable (a damaged gzip) ends the replay with one line and
+    exit status 2, after the steps of everything read before it."""
+    open_file(path).close()  # a FIFO, a device or a folder: one line, before anything else
+    err = make_console(stderr=True, highlight=False)
+    sinks = ([] if json_doc else [_step_sink(json_lines)]) + [_Messages(err)]
     session = Session(decoder, settings, sinks)
+    error: InputError | None = None
     try:
         replay_file(path, session, speed=speed)
     except KeyboardInterrupt:
         pass
+    except InputError as exc:
+        error = exc
     finally:
-        session.close()
+        try:
+            session.close()
+        except InputError as exc:
+            error = error or exc
     if json_doc:
         from livestep.reports.tables import analysis_document, write_json
 
@@ -191,5 +221,8 @@ def run_replay(path: Path, decoder: Decoder, settings: AnalysisSettings, *,
         write_json(analysis_document(str(path), session.counters.samples, session.results,
                                      verdicts=verdicts, profile=session.profile), sys.stdout)
     else:
-        Console(stderr=True).print(counters_table(session.counters))
+        err.print(counters_table(session.counters))
+    if error is not None:
+        err.print(f"livestep: error: {error}", markup=False, soft_wrap=True)
+        return error.exit_status
     return EXIT_OK

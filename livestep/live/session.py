@@ -9,87 +9,49 @@ tag every step that starts while they are active. Binary frames carry no notes.
 
 from __future__ import annotations
 
-import gzip
 import time
 from collections import deque
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import replace
 from pathlib import Path
-from typing import Protocol
 
+from livestep.decode.auto import AutoDecoder, Decoder
 from livestep.decode.counters import LinkCounters
 from livestep.decode.text import TextDecoder, TextFormat
 from livestep.decode.timebase import ClockSettings
+from livestep.errors import InputError
 from livestep.judge.profile import Profile
 from livestep.judge.verdict import StepVerdict, judge
 from livestep.sinks.base import Sink
+from livestep.sources.files import READ_ERRORS, open_file, read_error
 from livestep.steps.analysis import AnalysisSettings, StepAnalyzer, StepResult
 from livestep.steps.samples import SampleChunk
-from livestep.steps.tags import Note, NoteTimeline
+from livestep.steps.tags import (
+    MAX_NOTE_NAMES,
+    Note,
+    NoteTimeline,
+    clean_text,
+    is_note_name,
+)
 
-__all__ = ["AutoDecoder", "Decoder", "Session", "Sink", "make_decoder", "replay_file"]
+__all__ = ["AutoDecoder", "Decoder", "Session", "Sink", "check_note", "make_decoder",
+           "replay_file"]
 
 
-class Decoder(Protocol):
-    """Bytes in, sample chunks out (see :mod:`livestep.decode`)."""
-
-    counters: LinkCounters
-
-    def feed(self, data: bytes) -> list[SampleChunk]: ...
-
-    def flush(self) -> list[SampleChunk]: ...
+def check_note(name: str, value: str) -> tuple[str, str]:
+    """``(name, value)`` of a note from outside the stream, checked: the name is a note name
+    (letters, digits, ``_ . -``; :class:`InputError` otherwise), control characters in the
+    value are escaped."""
+    name = name.strip()
+    if not is_note_name(name):
+        raise InputError(f"a note name is one word of letters, digits, _ . or -, not"
+                         f" {clean_text(name)!r}")
+    return name, clean_text(value.strip())
 
 
 def _take_notes(decoder: object) -> list[Note]:
     take = getattr(decoder, "take_notes", None)
     return take() if take is not None else []
-
-
-class AutoDecoder:
-    """Looks at the first bytes and picks the binary frame decoder (0x00 delimiters
-    outnumber newlines) or the text decoder."""
-
-    def __init__(self, make_text: Callable[[LinkCounters], Decoder],
-                 make_binary: Callable[[LinkCounters], Decoder], probe: int = 256) -> None:
-        self.counters = LinkCounters()
-        self._make = (make_text, make_binary)
-        self._buf = b""
-        self._probe = probe
-        self._inner: Decoder | None = None
-
-    @property
-    def inner(self) -> Decoder | None:
-        return self._inner
-
-    def feed(self, data: bytes) -> list[SampleChunk]:
-        if self._inner is not None:
-            return self._inner.feed(data)
-        self._buf += data
-        if len(self._buf) < self._probe:
-            return []
-        return self._choose().feed(self._take())
-
-    def flush(self) -> list[SampleChunk]:
-        if self._inner is None:
-            if not self._buf:
-                return []
-            out = self._choose().feed(self._take())
-            return out + self._inner.flush()  # type: ignore[union-attr]
-        return self._inner.flush()
-
-    def take_notes(self) -> list[Note]:
-        """The inner decoder's new notes (text streams only)."""
-        return _take_notes(self._inner)
-
-    def _take(self) -> bytes:
-        buf, self._buf = self._buf, b""
-        return buf
-
-    def _choose(self) -> Decoder:
-        binary = self._buf.count(0) > self._buf.count(b"\n")
-        self._inner = self._make[1 if binary else 0](self.counters)
-        self.logs = getattr(self._inner, "logs", None)
-        return self._inner
 
 
 def make_decoder(kind: str = "auto", *, text: TextFormat | None = None,
@@ -140,6 +102,7 @@ class Session:
         self._closed = False
         self.notes = NoteTimeline()
         self._unsent: list[Note] = []  # notes not yet handed to the sinks
+        self._said: str | None = None  # the decoder's decision, once told
 
     @property
     def counters(self) -> LinkCounters:
@@ -149,20 +112,40 @@ class Session:
         """Decode and analyse the next bytes; returns the steps they closed."""
         for s in self.sinks:
             s.on_bytes(data)
-        return self._chunks(self.decoder.feed(data))
+        out = self._chunks(self.decoder.feed(data))
+        if self._said is None:
+            self._announce()
+        return out
+
+    def _announce(self) -> None:
+        """Tell the sinks, once, what the decoder decided about the stream's format."""
+        said = getattr(self.decoder, "decision", None)
+        if said:
+            self._said = said
+            for s in self.sinks:
+                s.on_message(f"stream format: {said}")
 
     def add_note(self, name: str, value: str, t: float | None = None) -> Note:
         """Add a note from outside the stream (a user interface): ``name`` is ``value``
         from ``t`` (seconds, the stream's time base; ``None``: the time of the latest
         sample, 0 before any). An empty ``value`` ends the note. Call it from the thread
-        that feeds the session."""
+        that feeds the session. The name must be a note name (:func:`check_note`); control
+        characters in the value are escaped, so nothing can break a recording's line."""
+        name, value = check_note(name, value)
         note = Note(float(t if t is not None else self.last_t or 0.0), name, value)
-        self.notes.add(note)
+        if not self.notes.add(note):
+            raise InputError(f"a note name too many (at most {MAX_NOTE_NAMES} names)")
         for s in self.sinks:
             s.on_note(note)
         return note
 
     def state(self, state: str) -> None:
+        """A link state change: ``connected`` means a port was (re)opened, so the decoder
+        joins the stream mid-line or mid-frame (``rejoin``)."""
+        if state == "connected":
+            rejoin = getattr(self.decoder, "rejoin", None)
+            if rejoin is not None:
+                rejoin()
         for s in self.sinks:
             s.on_state(state)
 
@@ -176,6 +159,8 @@ class Session:
             return []
         self._closed = True
         out = self._chunks(self.decoder.flush())
+        if self._said is None:
+            self._announce()
         out += self._finish()
         self._send_notes(None)
         for s in self.sinks:
@@ -245,16 +230,23 @@ def replay_file(path: Path, session: Session, *, speed: float | None = 1.0,
                 block: int = 1 << 16, stop: Callable[[], bool] = lambda: False,
                 sleep: Callable[[float], None] = time.sleep) -> None:
     """Push a file's bytes through ``session``, paced by the decoded sample times at
-    ``speed`` x real time (``None``: as fast as possible). Does not close the session."""
+    ``speed`` x real time (``None``: as fast as possible). Does not close the session. Only
+    a regular file is read (:func:`~livestep.sources.files.open_file`); a file that stops
+    being readable (a damaged gzip) raises :class:`InputError` after the bytes before it
+    went through the session."""
     if speed is not None:
         block = min(block, 4096)
     start = time.monotonic()
-    with open(path, "rb") as raw:
-        fh = gzip.GzipFile(fileobj=raw) if raw.peek(2)[:2] == b"\x1f\x8b" else raw
+    done = 0
+    with open_file(path) as fh:
         while not stop():
-            data = fh.read(block)
+            try:
+                data = fh.read(block)
+            except READ_ERRORS as exc:
+                raise read_error(Path(path), exc, f"after {done} bytes") from None
             if not data:
                 return
+            done += len(data)
             session.feed(data)
             session.tick()
             if speed is not None and session.first_t is not None and session.last_t is not None:

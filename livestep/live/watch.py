@@ -20,6 +20,7 @@ import json
 import queue
 import threading
 import time
+from collections import deque
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -28,10 +29,10 @@ from typing import IO, Any, Protocol
 import numpy as np
 from numpy.typing import NDArray
 
-from livestep.errors import InputError
+from livestep.errors import EXIT_FAIL, EXIT_OK, InputError, WriteError
 from livestep.judge.profile import Profile
 from livestep.judge.verdict import StepVerdict
-from livestep.live.session import Decoder, Session
+from livestep.live.session import Decoder, Session, check_note
 from livestep.sinks.base import Sink
 from livestep.sinks.recorder import Recorder
 from livestep.sources.replay import ReplaySource
@@ -123,6 +124,8 @@ class Snapshot:
     done: bool
     error: str | None = None
     said: str = ""  # the latest line of the driver (a plan runner), for the display
+    error_status: int = EXIT_OK  # the exit status the error calls for (0 without one)
+    stream_format: str | None = None  # what the decoder decided about the stream
 
 
 class _Ring:
@@ -202,6 +205,11 @@ class _Collector(Sink):
             self.watch._notes.append(note)
             self.watch._version += 1
 
+    def on_message(self, text: str) -> None:
+        with self.watch._lock:
+            self.watch._format = text
+            self.watch._version += 1
+
 
 class Watch:
     """A live session in threads. ``start()``, then read :meth:`snapshot` and
@@ -233,7 +241,9 @@ class Watch:
         self._lock = threading.Lock()
         self._ring = _Ring(ring_samples)
         self._entries: list[StepEntry] = []
-        self._notes: list[Note] = []
+        self._notes: deque[Note] = deque(maxlen=1000)  # the latest, for the display
+        self._format: str | None = None
+        self._error_status = EXIT_OK
         self._new_notes: list[Note] = []
         self._said = ""
         self._data_time: float | None = None
@@ -247,6 +257,7 @@ class Watch:
         self.recorder: Recorder | None = None
         self.results_log: Path | None = None
         self._log: IO[str] | None = None
+        self._log_failed: str | None = None
         self._record = (record, raw, metadata or (lambda: {"source": source_name}))
         # The session keeps only the recent steps (with their samples); the full list of
         # step summaries is ``_entries``, for the history, the report and the summary.
@@ -262,7 +273,11 @@ class Watch:
         self.source.start()  # a port that cannot be opened ends here, before any file
         record, raw, metadata = self._record
         if record is not None:
-            self.recorder = Recorder(record, raw_path=raw, metadata=metadata)
+            try:
+                self.recorder = Recorder(record, raw_path=raw, metadata=metadata)
+            except InputError:  # nowhere to record: one line, and the port closes again
+                self.source.stop()
+                raise
             self.results_log = results_log_path(self.recorder.path)
             self.session.sinks.append(self.recorder)
         self._started = time.monotonic()
@@ -295,9 +310,9 @@ class Watch:
         """Tag the steps from now on (the device time of the last sample) with
         ``name=value`` (an empty value ends the note); it reaches the session, and through
         it the recording, on the analysis thread."""
-        name, value = name.strip(), value.strip()
-        if not name:
+        if not name.strip():
             raise InputError("a note needs a name: NAME=VALUE or a few words")
+        name, value = check_note(name, value)
         with self._lock:
             note = Note(self._data_time or 0.0, name, value)
             self._new_notes.append(note)
@@ -326,7 +341,8 @@ class Watch:
                 steps=tuple(self._entries), notes=tuple(self._notes),
                 speed=getattr(self.source, "speed", None),
                 profile=getattr(self.profile, "name", None), version=self._version,
-                done=self._done.is_set(), error=self._error, said=self._said)
+                done=self._done.is_set(), error=self._error, said=self._said,
+                error_status=self._error_status, stream_format=self._format)
 
     def samples(self, since: float | None = None, count: int = 1 << 16) -> Samples:
         """Copies of the recent samples: from device time ``since`` (seconds), or the
@@ -350,11 +366,16 @@ class Watch:
 
     def _add_step(self, result: StepResult, verdict: StepVerdict | None) -> None:
         entry = StepEntry(result, verdict, time.monotonic())
-        if self._log is None and self.results_log is not None:
-            self._log = self.results_log.open("a", encoding="utf-8")
-        if self._log is not None:
-            self._log.write(json.dumps(step_line_record(entry), allow_nan=False) + "\n")
-            self._log.flush()
+        if self.results_log is not None and self._log_failed is None:
+            try:
+                if self._log is None:
+                    self._log = self.results_log.open("a", encoding="utf-8")
+                self._log.write(json.dumps(step_line_record(entry), allow_nan=False) + "\n")
+                self._log.flush()
+            except OSError as exc:  # the session ends with it; the steps so far are kept
+                self._log_failed = (f"{self.results_log}: cannot write ({exc.strerror or exc});"
+                                    " the results log stopped")
+                self._close_log()
         if self.max_steps is not None and len(self._entries) >= self.max_steps:
             return  # a step closed while stopping: recorded and logged, not announced
         with self._lock:
@@ -384,6 +405,8 @@ class Watch:
         if kind == "data":
             self.session.feed(payload)  # type: ignore[arg-type]
             return
+        if kind == "error":  # the source cannot go on (a damaged file): one line
+            raise InputError(str(payload))
         reader = self.source
         reconnects = getattr(reader, "reconnects", 0)
         dropped = getattr(reader, "dropped_bytes", 0)
@@ -414,16 +437,43 @@ class Watch:
                 else:
                     self._handle(kind, payload)
                     self.session.tick()
+                self._check_writes()
                 if self.driver is not None and self.driver.poll():
                     self.reason = "done"
                     break
         except InputError as exc:
-            self._error, self.reason = str(exc), "error"
+            self._fail(exc)
         except Exception as exc:  # a bug: keep what was recorded, say it in one line
-            self._error = f"internal error: {type(exc).__name__}: {exc}"
-            self.reason = "error"
+            self._fail(exc)
         finally:
             self._finish()
+
+    def _fail(self, exc: BaseException) -> None:
+        """The session's error (the first one counts): one line and its exit status."""
+        self.reason = "error"
+        if self._error is not None:
+            return
+        if isinstance(exc, InputError):
+            self._error, self._error_status = str(exc), exc.exit_status
+        else:
+            self._error = f"internal error: {type(exc).__name__}: {exc}"
+            self._error_status = EXIT_FAIL
+
+    def _check_writes(self) -> None:
+        """A recording or results log that cannot be written ends the session."""
+        failed = (self.recorder.failed if self.recorder is not None else None) or \
+            self._log_failed
+        if failed:
+            raise WriteError(failed)
+
+    def _close_log(self) -> None:
+        log, self._log = self._log, None
+        if log is not None:
+            try:
+                log.close()
+            except OSError as exc:
+                self._log_failed = self._log_failed or (
+                    f"{self.results_log}: cannot write ({exc.strerror or exc})")
 
     def _drain(self) -> None:
         """Decode what the reader has queued (a file loses nothing by being left)."""
@@ -435,28 +485,42 @@ class Watch:
                     return
                 if kind == "data":
                     self._handle(kind, payload)
-        except InputError as exc:
-            self._error, self.reason = str(exc), "error"
+                    self._check_writes()
+        except Exception as exc:  # noqa: BLE001 - the session's error, in one line
+            self._fail(exc)
 
     def _finish(self) -> None:
-        if self.reason != "error":
-            self._drain()  # while the link is open: a driver then hears how it really ended
-        if self.driver is not None:
-            try:
-                self.driver.end(self.reason)
-            except Exception as exc:  # the source still closes and the recording with it
-                self._error = self._error or f"internal error: {type(exc).__name__}: {exc}"
-        self.source.stop()
-        self._pass_notes()
-        self._drain()
+        """End the session whatever happened: the driver hears the end (and sends its safe
+        command while the link is up), the source closes, what was received is decoded and
+        recorded, the files close. Every stage is guarded, so :meth:`wait` always returns."""
         try:
-            self.session.close()
-        except InputError as exc:
-            self._error = self._error or str(exc)
-        if self._log is not None:
-            self._log.close()
-        with self._lock:
-            if self._state != FINISHED:
-                self._state = STOPPED
-            self._version += 1
-        self._done.set()
+            if self.reason != "error":
+                self._drain()  # while the link is open: a driver hears how it really ended
+            if self.driver is not None:
+                try:
+                    self.driver.end(self.reason)
+                except Exception as exc:  # noqa: BLE001 - the source still closes
+                    self._fail(exc)
+            try:
+                self.source.stop()
+            except Exception as exc:  # noqa: BLE001
+                self._fail(exc)
+            try:
+                self._pass_notes()
+            except Exception as exc:  # noqa: BLE001
+                self._fail(exc)
+            self._drain()
+            try:
+                self.session.close()
+                self._check_writes()
+            except Exception as exc:  # noqa: BLE001 - a recorder that failed at the end
+                self._fail(exc)
+            self._close_log()
+            if self._log_failed and self._error is None:
+                self._fail(WriteError(self._log_failed))
+        finally:
+            with self._lock:
+                if self._state != FINISHED:
+                    self._state = STOPPED
+                self._version += 1
+            self._done.set()

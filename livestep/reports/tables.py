@@ -160,9 +160,9 @@ def render_table(results: Sequence[StepResult], console: Console, title: str,
             for c in verdicts[i].checks:
                 if c.verdict != "pass":
                     console.print(f"step {r.index}: {verdict_text(c.verdict)}"
-                                  f" {describe_check(c)}", highlight=False)
+                                  f" {escape(describe_check(c))}", highlight=False)
         for w in r.warnings:
-            console.print(f"[yellow]step {r.index}:[/] {w}")
+            console.print(f"[yellow]step {r.index}:[/] {escape(w)}")
 
 
 # -- statistics, design guidance and comparisons (see livestep.judge.statistics, .design, .compare)
@@ -256,7 +256,7 @@ def render_statistics(groups: Sequence[GroupStats], console: Console) -> None:
     for q in cols:
         by_group.add_column(STATISTICS_ROWS[q], justify="right", no_wrap=True)
     for g in groups[1:]:
-        by_group.add_row(f"{g.by} {g.key}", str(len(g.steps)),
+        by_group.add_row(escape(f"{g.by} {g.key}"), str(len(g.steps)),  # tags: literal
                          *(_shown(q, g.get(q).mean, ".3g") for q in cols))
     console.print(by_group)
 

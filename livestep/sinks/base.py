@@ -30,6 +30,10 @@ class Sink:
     def on_state(self, state: str) -> None:
         """Link state: connected, disconnected, ..."""
 
+    def on_message(self, text: str) -> None:
+        """Something the user should know about the session, one line (the stream format
+        the decoder detected)."""
+
     def on_tick(self, counters: LinkCounters) -> None:
         """Called now and then, with or without data, with the link's counters (periodic
         flushing and status displays)."""

@@ -1,4 +1,7 @@
-"""Plain console output for live sessions and replays: one line per step and state."""
+"""Plain console output for live sessions and replays: one line per step and state.
+
+Text from the stream (tags, notes) is always printed literally: never as rich markup,
+and with its control characters already escaped by the decoder."""
 
 from __future__ import annotations
 
@@ -6,6 +9,7 @@ import json
 from typing import IO
 
 from rich.console import Console
+from rich.markup import escape
 from rich.table import Table
 
 from livestep.decode.counters import LinkCounters
@@ -39,7 +43,7 @@ def counters_table(c: LinkCounters) -> Table:
     table.add_column("counter")
     table.add_column("value", justify="right")
     for key in ("bytes", "samples", "bad_total", "gaps", "lost", "resyncs", "reconnects",
-                "log_lines", "notes", "restarts"):
+                "log_lines", "notes", "restarts", "skipped"):
         table.add_row(key.replace("_", " "), str(snap[key]))
     for reason, n in sorted(snap["bad"].items()):
         table.add_row(f"  bad: {reason}", str(n))
@@ -66,7 +70,7 @@ class ConsoleSink(Sink):
                     self.console.print(f"  {SYMBOLS[c.verdict]} {c.verdict}: "
                                        f"{describe_check(c)}", highlight=False, markup=False)
         for w in result.warnings:
-            self.console.print(f"  [yellow]{w}[/]")
+            self.console.print(f"  [yellow]{escape(w)}[/]")
 
     def on_note(self, note: Note) -> None:
         if self._notes and self._notes[0].t != note.t:
@@ -75,7 +79,7 @@ class ConsoleSink(Sink):
 
     def on_state(self, state: str) -> None:
         self._print_notes()
-        self.console.print(f"[bold]link {state}[/]")
+        self.console.print(f"[bold]link {escape(state)}[/]")
 
     def on_tick(self, counters: LinkCounters) -> None:
         self._print_notes()

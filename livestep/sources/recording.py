@@ -9,31 +9,51 @@ Notes (:mod:`livestep.steps.tags`) come from ``# note: <t> name=value`` lines (a
 recorder writes them) and from a column named ``note``: a non-empty cell is a note
 at its row's time, ``name=value``, or else the text as the value of a note named
 ``note`` (cells are split at commas; no CSV quoting). ``reader.notes`` holds them
-once the data are read.
+once the data are read. A ``# note:`` line is a note or nothing, never metadata.
+
+Hostile files cost bounded memory and linear time: blank lines are skipped at the speed
+of ``bytes.lstrip`` (header) or numpy (data); no header line is held beyond 64 KB and no
+data line beyond :data:`MAX_LINE` (it is skipped and counted as overlong); a UTF-8 byte
+order mark is ignored; notes of one name at one time keep one value.
+
+Why this module is long: one reader class whose header scan, block parse and note column
+share the reader's line count and statistics; splitting it would pass that state about.
 """
 
 from __future__ import annotations
 
-import gzip
 import math
 import queue
 import threading
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import BinaryIO
 
 import numpy as np
 
+from livestep.decode.lines import cut_column, cut_column_lines
 from livestep.decode.numparse import is_number, parse_block
 from livestep.errors import InputError
+from livestep.sources.files import READ_ERRORS, open_file, read_error
 from livestep.steps.samples import SampleChunk
-from livestep.steps.tags import Note, parse_note, parse_recorded_note
+from livestep.steps.tags import (
+    MAX_NOTE_NAMES,
+    NOTE_PREFIX,
+    Note,
+    clean_text,
+    parse_note,
+    parse_recorded_note,
+)
 
 __all__ = ["ColumnMap", "ReadStats", "RecordingReader", "TIME_UNITS", "read_ahead"]
 
 TIME_UNITS = {"s": 1.0, "ms": 1e-3, "us": 1e-6}
 _BLOCK_BYTES = 1 << 22
+_PIECE_BYTES = 1 << 16
+_HEADER_BLOCK = 1 << 16
+_MAX_HEADER_LINE = 1 << 16  # bytes: no header or metadata line is longer
+MAX_LINE = 1 << 20  # bytes: a longer data line is skipped as overlong, never held
+_BOM = b"\xef\xbb\xbf"  # a UTF-8 byte order mark some editors write first
 _MAX_BAD_FRACTION = 0.1
 NOTE_COLUMN = "note"
 
@@ -71,27 +91,13 @@ class ReadStats:
             self.first_bad_line = line
 
 
-def _open(path: Path) -> BinaryIO:
-    try:
-        raw = path.open("rb")
-    except FileNotFoundError:
-        raise InputError(f"{path}: no such file") from None
-    except IsADirectoryError:
-        raise InputError(f"{path}: is a directory, not a recording") from None
-    except OSError as exc:
-        raise InputError(f"{path}: cannot open ({exc.strerror})") from None
-    magic = raw.peek(2)[:2] if hasattr(raw, "peek") else b""
-    if magic == b"\x1f\x8b":
-        return gzip.GzipFile(fileobj=raw)  # type: ignore[return-value]
-    return raw
-
-
-def _resolve(name: str, header: list[str], role: str) -> int:
+def _resolve(name: str, header: list[str], role: str, source: str) -> int:
     if name in header:
         return header.index(name)
     if name.isdigit() and 1 <= int(name) <= len(header):
         return int(name) - 1
-    raise InputError(f"no {role} column {name!r}; the header has: {', '.join(header)}")
+    raise InputError(f"no {role} column {name!r}; the header has: {', '.join(header)}",
+                     source=source)
 
 
 class RecordingReader:
@@ -109,8 +115,12 @@ class RecordingReader:
         self._scale = TIME_UNITS[columns.time_unit]
         self.metadata: dict[str, str] = {}
         self.notes: list[Note] = []
+        self._note_at: dict[tuple[str, float], int] = {}  # (name, t) -> index in notes
+        self._note_names: set[str] = set()
+        self._rest = b""  # bytes read past the header
+        self.damage: str | None = None  # why the data ended early (a damaged file), one line
         self.stats = ReadStats()
-        self._fh = _open(self.path)
+        self._fh = open_file(self.path)
         try:
             self._read_header(columns)
         except BaseException:
@@ -118,17 +128,46 @@ class RecordingReader:
             raise
 
     # -- header -------------------------------------------------------------------
-    def _read_header(self, columns: ColumnMap) -> None:
-        line_no = 0
+    def _more(self, where: str) -> bytes:
+        try:
+            return self._fh.read(_HEADER_BLOCK)
+        except READ_ERRORS as exc:
+            raise read_error(self.path, exc, where) from None
+
+    def _header_text(self) -> tuple[str, int]:
+        """The header row and its line number, reading the ``#`` lines before it
+        (metadata, notes) and leaving what follows it in ``self._rest``. Blank lines are
+        skipped at the speed of ``bytes.lstrip``; no line is held beyond 64 KB."""
+        buf, pos, line_no = b"", 0, 0
         while True:
-            try:
-                raw = self._fh.readline(1 << 16)
-            except (OSError, EOFError, gzip.BadGzipFile) as exc:
-                raise InputError(f"{self.path}: unreadable ({exc})") from None
+            if pos < len(buf) and buf[pos:pos + 1] in b" \t\r\n":  # skip blank lines fast
+                rest = buf[pos:].lstrip(b" \t\r\n")
+                q = len(buf) - len(rest)
+                start = buf.rfind(b"\n", pos, q) + 1 if rest else len(buf)
+                start = max(start, pos)
+                line_no += buf.count(b"\n", pos, start)
+                pos = start
+            nl = buf.find(b"\n", pos)
+            if nl < 0:
+                if len(buf) - pos > _MAX_HEADER_LINE:
+                    raise InputError(f"line {line_no + 1} is longer than 64 KB: not a"
+                                     " recording's header", source=str(self.path))
+                more = self._more(f"in the header, after line {line_no}")
+                if more:
+                    buf, pos = buf[pos:] + more, 0
+                    continue
+                if not buf[pos:].strip():
+                    raise InputError(f"{self.path}: empty file, no header row" if
+                                     line_no == 0 and not buf else f"{self.path}: no header row")
+                nl = len(buf)
+                buf += b"\n"
+            raw, pos = buf[pos:nl], nl + 1
             line_no += 1
-            if not raw:
-                raise InputError(f"{self.path}: empty file, no header row" if line_no == 1
-                                 else f"{self.path}: no header row")
+            if line_no == 1 and raw.startswith(_BOM):
+                raw = raw[len(_BOM):]
+            if len(raw) > _MAX_HEADER_LINE:
+                raise InputError(f"line {line_no} is longer than 64 KB: not a recording's"
+                                 " header", source=str(self.path))
             if b"\x00" in raw:
                 raise InputError("binary data, not a CSV recording", source=str(self.path),
                                  line=line_no)
@@ -139,17 +178,23 @@ class RecordingReader:
                                  line=line_no) from None
             if not text:
                 continue
-            if text.startswith("#"):
+            if text.startswith(NOTE_PREFIX):  # a note, never metadata (even if unreadable)
                 note = parse_recorded_note(text)
                 if note is not None:
-                    self.notes.append(note)
-                    continue
+                    self._add_note(note)
+                continue
+            if text.startswith("#"):
                 key, sep, value = text[1:].partition(":")
                 if sep:
                     self.metadata[key.strip()] = value.strip()
                 continue
-            break
+            self._rest = buf[pos:]
+            return text, line_no
+
+    def _read_header(self, columns: ColumnMap) -> None:
+        text, line_no = self._header_text()
         header = [h.strip() for h in text.split(",")]
+        src = str(self.path)
         if len(header) < 2:
             raise InputError(f"the header has one column ({header[0]!r}); need at least time"
                              " and feedback, separated by commas", source=str(self.path),
@@ -158,20 +203,22 @@ class RecordingReader:
             raise InputError("the first row is numbers, not a header naming the columns",
                              source=str(self.path), line=line_no)
         self.header = header
-        ti = _resolve(columns.time, header, "time")
-        fi = _resolve(columns.feedback, header, "feedback")
+        ti = _resolve(columns.time, header, "time", src)
+        fi = _resolve(columns.feedback, header, "feedback", src)
         if columns.setpoint is not None:
-            si: int | None = _resolve(columns.setpoint, header, "setpoint")
+            si: int | None = _resolve(columns.setpoint, header, "setpoint", src)
         else:
             si = header.index("setpoint") if "setpoint" in header else None
         roles = {ti, fi} | ({si} if si is not None else set())
         if len(roles) < 2 + (si is not None):
-            raise InputError("time, setpoint and feedback must be different columns")
+            raise InputError("time, setpoint and feedback must be different columns",
+                             source=src)
         # A note column is cut from each block before the numeric parse; indices below
         # are into the numeric columns that are left.
         self._ni = header.index(NOTE_COLUMN) if NOTE_COLUMN in header else None
         if self._ni in roles:
-            raise InputError(f"the {NOTE_COLUMN!r} column holds text notes, not samples")
+            raise InputError(f"the {NOTE_COLUMN!r} column holds text notes, not samples",
+                             source=src)
         numeric = [i for i in range(len(header)) if i != self._ni]
         self._ncol = len(numeric)
         self._ti, self._fi = numeric.index(ti), numeric.index(fi)
@@ -187,30 +234,40 @@ class RecordingReader:
 
     # -- data -----------------------------------------------------------------------
     def __iter__(self) -> Iterator[SampleChunk]:
-        carry = b""
+        carry, skipping = self._rest, False
+        self._rest = b""
         try:
             while True:
-                try:
-                    block = self._fh.read(_BLOCK_BYTES)
-                except (OSError, EOFError, gzip.BadGzipFile) as exc:
-                    raise InputError(f"{self.path}: unreadable after line {self._line}"
-                                     f" ({exc})") from None
+                block = self._read_block(carry)
                 if not block:
                     break
+                if skipping:  # the rest of an overlong line
+                    nl = block.find(b"\n")
+                    if nl < 0:
+                        continue
+                    block, skipping = block[nl + 1:], False
+                    self._line += 1
                 block = carry + block
                 cut = block.rfind(b"\n") + 1
                 carry = block[cut:]
+                if len(carry) > MAX_LINE:  # never held: skipped and counted
+                    self.stats.rows += 1
+                    self.stats.skip(self._line + block.count(b"\n", 0, cut) + 1,
+                                    "overlong line")
+                    carry, skipping = b"", True
                 if cut:
                     chunk = self._parse(block[:cut])
                     if chunk is not None:
                         yield chunk
-            if carry.strip():
+            if carry.strip() and self.damage is None:  # a damaged file's last line is cut
                 chunk = self._parse(carry + b"\n")
                 if chunk is not None:
                     yield chunk
         finally:
             self._fh.close()
         st = self.stats
+        if self.damage is not None and st.good == 0:
+            raise InputError(self.damage)
         if st.bad > _MAX_BAD_FRACTION * st.rows:
             reason = max(st.reasons, key=st.reasons.__getitem__)
             raise InputError(f"{st.bad} of {st.rows} data rows are bad ({reason}), first at"
@@ -218,23 +275,65 @@ class RecordingReader:
         if st.good == 0:
             raise InputError("no valid data rows after the header", source=str(self.path))
 
+    def _read_block(self, carry: bytes) -> bytes:
+        """The next block, read in small pieces so that a file damaged further on (a
+        truncated gzip) still gives every whole line before the damage; the damage is kept
+        in :attr:`damage` and ends the data there."""
+        if self.damage is not None:
+            return b""
+        parts, size = [], 0
+        while size < _BLOCK_BYTES:
+            try:
+                piece = self._fh.read(_PIECE_BYTES)
+            except READ_ERRORS as exc:
+                lines = self._line + carry.count(b"\n") + sum(p.count(b"\n") for p in parts)
+                self.damage = str(read_error(self.path, exc, f"after line {lines}"))
+                break
+            if not piece:
+                break
+            parts.append(piece)
+            size += len(piece)
+        return b"".join(parts)
+
+    def _add_note(self, note: Note) -> None:
+        """Keep a note; a second one of the same name at the same time replaces it (as in
+        :class:`~livestep.steps.tags.NoteTimeline`), so a flood of them stays small."""
+        key = (note.name, note.t)
+        k = self._note_at.get(key)
+        if k is not None:
+            self.notes[k] = note
+            return
+        if note.name not in self._note_names:
+            if len(self._note_names) >= MAX_NOTE_NAMES:
+                return
+            self._note_names.add(note.name)
+        self._note_at[key] = len(self.notes)
+        self.notes.append(note)
+
     def _parse(self, block: bytes) -> SampleChunk | None:
         ncol = self._ncol
         first_line = self._line + 1
         nlines = block.count(b"\n")
         self._line += nlines
         self.stats.rows += nlines
-        data = None
         if b"\r" in block:
             block = block.replace(b"\r", b"")
+        linenos = np.arange(first_line, first_line + nlines)
+        if b"\n\n" in block or block[:1] == b"\n":  # blank lines: dropped at numpy speed
+            block, linenos = _drop_empty_lines(block, linenos)
+            self.stats.rows -= nlines - linenos.size
+            nlines = linenos.size
+            if nlines == 0:
+                return None
         cells: list[tuple[int, str]] = []
         if self._ni is not None:
-            block, cells = _cut_column(block, self._ni, len(self.header), first_line)
+            block, found = cut_column(block, self._ni, len(self.header), 0)
+            cells = [(int(linenos[k]), text) for k, text in found]
         data = parse_block(block, nlines, ncol)
         if data is not None:
-            lines = np.arange(first_line, first_line + nlines)
-        if data is None:
-            data, lines = self._parse_slow(block, first_line)
+            lines = linenos
+        else:
+            data, lines = self._parse_slow(block, linenos)
         roles = [self._ti, self._fi] + ([self._si] if self._si is not None else [])
         finite = np.isfinite(data[:, roles]).all(axis=1)
         if not finite.all():
@@ -242,6 +341,8 @@ class RecordingReader:
                 self.stats.skip(int(ln), "non-numeric or missing value")
             data, lines = data[finite], lines[finite]
         if data.shape[0] == 0:
+            if cells:
+                self._cell_notes(cells, np.empty(0), lines)
             return None
         t = data[:, self._ti] * self._scale
         prev = np.concatenate(([self._last_t], t[:-1]))
@@ -268,17 +369,17 @@ class RecordingReader:
             extras={n: np.ascontiguousarray(data[:, i])
                     for n, i in zip(self.extra_names, self._extra_idx, strict=True)})
 
-    def _parse_slow(self, block: bytes, first_line: int) -> tuple[np.ndarray, np.ndarray]:
+    def _parse_slow(self, block: bytes,
+                    linenos: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         ncol = self._ncol
         rows: list[list[float]] = []
         lines: list[int] = []
-        for k, raw in enumerate(block.split(b"\n")[:-1]):
-            ln = first_line + k
+        for ln, raw in zip(linenos.tolist(), block.split(b"\n")[:-1], strict=True):
             if not raw.strip() or raw.lstrip().startswith(b"#"):
                 self.stats.rows -= 1
                 note = parse_recorded_note(raw.decode("utf-8", "replace").strip())
                 if note is not None:
-                    self.notes.append(note)
+                    self._add_note(note)
                 continue
             cells = raw.split(b",")
             if len(cells) != ncol:
@@ -293,7 +394,6 @@ class RecordingReader:
             rows.append(row)
             lines.append(ln)
         return (np.array(rows, dtype=float).reshape(-1, ncol), np.array(lines, dtype=np.intp))
-
 
     def _cell_notes(self, cells: list[tuple[int, str]], t: np.ndarray,
                     lines: np.ndarray) -> None:
@@ -310,57 +410,22 @@ class RecordingReader:
             else:
                 continue
             name, value = parse_note(text) or (NOTE_COLUMN, text)
-            self.notes.append(Note(at, name, value))
+            self._add_note(Note(at, name, clean_text(value)))
 
 
-def _cut_column(block: bytes, index: int, ncol: int,
-                first_line: int) -> tuple[bytes, list[tuple[int, str]]]:
-    """The block without column ``index`` of ``ncol`` (comment lines, and lines that do
-    not have the column, left as they are), and the non-empty cells cut, with their line
-    numbers. Vectorised when every line of the block has ``ncol`` cells."""
+def _drop_empty_lines(block: bytes, linenos: np.ndarray) -> tuple[bytes, np.ndarray]:
+    """The block without its empty lines, and the line numbers of the lines kept."""
     b = np.frombuffer(block, dtype=np.uint8)
-    ends = np.flatnonzero(b == ord("\n"))
-    commas = np.flatnonzero(b == ord(","))
-    if commas.size != ends.size * (ncol - 1) or b"#" in block:
-        return _cut_column_lines(block, index, first_line)
-    at = commas.reshape(ends.size, ncol - 1)
+    ends = np.flatnonzero(b == 10)
     starts = np.concatenate(([0], ends[:-1] + 1))
-    if not (np.all(at[:, 0] >= starts) and np.all(at[:, -1] < ends)):
-        return _cut_column_lines(block, index, first_line)  # rows of different lengths
-    if index == 0:
-        lo, hi = starts, at[:, 0]
-        gone = (lo, hi + 1)  # the cell and the comma after it
-    elif index == ncol - 1:
-        lo, hi = at[:, -1] + 1, ends
-        gone = (lo - 1, hi)  # the comma before it and the cell
-    else:
-        lo, hi = at[:, index - 1] + 1, at[:, index]
-        gone = (lo, hi + 1)
-    cells = [(first_line + int(k), block[lo[k]:hi[k]].strip().decode("utf-8", "replace"))
-             for k in np.flatnonzero(hi > lo)]
-    edge = np.zeros(b.size + 1, dtype=np.int32)
-    edge[gone[0]] += 1  # one range per line: no index repeats within either array
-    edge[gone[1]] -= 1
-    keep = np.cumsum(edge[:-1]) == 0
-    return b[keep].tobytes(), [(ln, text) for ln, text in cells if text]
+    empty = ends == starts
+    keep = np.ones(b.size, dtype=bool)
+    keep[ends[empty]] = False
+    return b[keep].tobytes(), linenos[~empty]
 
 
-def _cut_column_lines(block: bytes, index: int,
-                      first_line: int) -> tuple[bytes, list[tuple[int, str]]]:
-    """:func:`_cut_column` line by line, for blocks with comment or short lines."""
-    lines = block.split(b"\n")
-    cells: list[tuple[int, str]] = []
-    for k, line in enumerate(lines[:-1]):
-        if line.startswith(b"#"):
-            continue
-        parts = line.split(b",")
-        if len(parts) <= index:
-            continue
-        cell = parts.pop(index).strip()
-        if cell:
-            cells.append((first_line + k, cell.decode("utf-8", "replace")))
-        lines[k] = b",".join(parts)
-    return b"\n".join(lines), cells
+#: The column cut, shared with the text decoder (names kept for the tests).
+_cut_column, _cut_column_lines = cut_column, cut_column_lines
 
 
 def read_all(path: str | Path, columns: ColumnMap = ColumnMap()) -> tuple[RecordingReader,

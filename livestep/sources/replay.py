@@ -2,12 +2,13 @@
 
 The thread reads the file in blocks into a short, blocking queue (a file loses
 nothing by waiting) and paces itself by the sample times the session has decoded, at a
-speed factor that can change while it plays; it can pause and resume.
+speed factor that can change while it plays; it can pause and resume. Only a regular
+file is played (a FIFO or a device is refused when the source is made); a file that
+stops being readable (a damaged gzip) ends the replay with an ``error`` event.
 """
 
 from __future__ import annotations
 
-import gzip
 import queue
 import threading
 import time
@@ -15,7 +16,7 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import IO
 
-from livestep.errors import InputError
+from livestep.sources.files import READ_ERRORS, open_file, read_error
 
 __all__ = ["ReplaySource"]
 
@@ -24,13 +25,13 @@ class ReplaySource:
     """Plays a recording (or raw capture, gzip or not) in its own thread, paced by the
     decoded sample times (``progress()``: seconds of data the session has decoded) at
     ``speed`` x real time, or as fast as the consumer takes it (``speed=None``). The
-    queue is short and blocking: a file loses nothing by waiting."""
+    queue is short and blocking: a file loses nothing by waiting. Events: ``("data",
+    bytes)``, ``("state", "paused" | "playing" | "finished")``, ``("error", line)``."""
 
     def __init__(self, path: Path, *, speed: float | None = 1.0, block: int = 4096,
                  paused: bool = False) -> None:
-        if not Path(path).is_file():
-            raise InputError(f"{path}: no such file")
         self.path = Path(path)
+        self._fh: IO[bytes] | None = open_file(self.path)  # a FIFO or device: one line here
         self.events: queue.Queue[tuple[str, object]] = queue.Queue(maxsize=2)
         self.block = block if speed is not None else max(block, 1 << 16)
         self.progress: Callable[[], float | None] = lambda: None
@@ -73,6 +74,9 @@ class ReplaySource:
         self._playing.set()
         if self._thread is not None:
             self._thread.join(timeout)
+        elif self._fh is not None:  # never started: close the file opened for it
+            self._fh.close()
+            self._fh = None
 
     def _put(self, event: tuple[str, object]) -> bool:
         while not self._stop.is_set():
@@ -84,17 +88,32 @@ class ReplaySource:
         return False
 
     def _run(self) -> None:
-        with open(self.path, "rb") as raw:
-            fh: IO[bytes] = gzip.GzipFile(fileobj=raw) if raw.peek(2)[:2] == b"\x1f\x8b" else raw
+        """Read, hand on, pace; a file that cannot be read on (a damaged gzip, a read error)
+        ends the replay with an ``("error", line)`` event after the bytes read before."""
+        fh, self._fh = self._fh, None
+        assert fh is not None
+        done = 0
+        try:
             while not self._stop.is_set():
                 self._playing.wait()
-                data = fh.read(self.block)
+                try:
+                    data = fh.read(self.block)
+                except READ_ERRORS as exc:
+                    self._put(("error", str(read_error(self.path, exc,
+                                                       f"after {done} bytes"))))
+                    return
                 if not data:
                     self._put(("state", "finished"))
                     return
+                done += len(data)
                 if not self._put(("data", data)):
                     return
                 self._pace()
+        finally:
+            try:
+                fh.close()
+            except READ_ERRORS:
+                pass
 
     def _pace(self) -> None:
         while not self._stop.is_set() and self._playing.is_set():

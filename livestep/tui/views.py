@@ -105,7 +105,7 @@ def history_row(e: StepEntry) -> tuple[Text | str, ...]:
             _ms(m.rise_time), f"{m.overshoot_pct:.1f}",
             _ms(m.settling_time) if m.settled else "no",
             "–" if r.model is None else f"{r.model.zeta:.3f}",
-            " ".join(f"{k}={v}" for k, v in r.tags))
+            Text(" ".join(f"{k}={v}" for k, v in r.tags)))  # a Text: shown literally
 
 
 HISTORY_COLUMNS = ("#", "t step s", "verdict", "rise ms", "OS %", "settle ms", "ζ", "tags")
