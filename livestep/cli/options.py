@@ -40,6 +40,15 @@ def positive(text: str) -> float:
     return x
 
 
+def add_output_options(p: argparse.ArgumentParser) -> None:
+    """``--color``, which every command takes (see :mod:`livestep.sinks.terminal`)."""
+    from livestep.sinks.terminal import COLOR_MODES
+
+    p.add_argument("--color", choices=COLOR_MODES, default="auto",
+                   help="colour the output: auto (on a terminal, unless NO_COLOR is set),"
+                   " always, never (default auto)")
+
+
 def add_analysis_options(p: argparse.ArgumentParser) -> None:
     m = p.add_argument_group("measurement")
     m.add_argument("--min-step", type=positive, metavar="X",
