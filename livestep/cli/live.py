@@ -18,7 +18,7 @@ from livestep.cli.options import (
     port_settings,
     positive,
 )
-from livestep.errors import EXIT_OK, InputError
+from livestep.errors import EXIT_BAD_INPUT, EXIT_OK, InputError
 from livestep.judge.profile import load_profile
 from livestep.live.run import run_live, run_replay
 
@@ -98,6 +98,11 @@ def run_live_command(args: argparse.Namespace) -> int:
             for line in describe_plan(plan):
                 print(line)
             print("dry run: nothing was sent (add --send to send this plan)")
+            try:
+                check_sendable(plan)
+            except InputError as exc:
+                print(f"livestep: --send would refuse this plan: {exc}", file=sys.stderr)
+                return EXIT_BAD_INPUT
             return EXIT_OK
         check_sendable(plan)
         if not args.no_confirm:
@@ -134,6 +139,8 @@ def _plan(args: argparse.Namespace):  # noqa: ANN202 - a Plan or None
     cmds = {k: getattr(args, a) for k, a in (("setpoint", "setpoint_command"),
                                               ("safe", "safe_command"))
             if getattr(args, a) is not None}
+    if args.safe_unchecked:
+        cmds["safe_unchecked"] = True
     if cmds:
         doc["commands"] = {**doc.get("commands", {}), **cmds}
     if not doc:
@@ -218,6 +225,9 @@ def _add_plan_options(p: argparse.ArgumentParser) -> None:
                    help="the controller's setpoint command, e.g. 'sp {value}'")
     g.add_argument("--safe-command", metavar="TEXT", help="sent once at the end, on error,"
                    " link loss and Ctrl-C (default: the setpoint command at --rest)")
+    g.add_argument("--safe-unchecked", action="store_true",
+                   help="allow a safe command that is not a setpoint command (livestep cannot"
+                   " check it against the limits)")
     g.add_argument("--send", action="store_true",
                    help="really send the plan to the controller (without it, the plan is"
                    " only shown)")

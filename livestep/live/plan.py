@@ -30,6 +30,12 @@ A plan is a TOML document (or the same keys from command-line options)::
 
 Every command of the expanded plan carries tags (``plan_entry``, ``setpoint``, ``repeat``,
 ``gains``) that the steps it causes inherit.
+
+Every line a plan can send is checked as it will be sent (:mod:`livestep.live.plan_text`):
+printable ASCII, no command separator, numbers rendered faithfully; with limits, every
+setpoint sent, the safe command (read back through the setpoint template) and the return
+to it from any level (the safe command goes out whenever the plan stops) lie inside them.
+A plan expands to at most :data:`MAX_COMMANDS` commands, counted before it is expanded.
 """
 
 from __future__ import annotations
@@ -42,9 +48,19 @@ from pathlib import Path
 from typing import Any
 
 from livestep.errors import InputError
+from livestep.live.plan_text import (
+    SEPARATORS,
+    Template,
+    check_line,
+    parse_template,
+    read_setpoint,
+)
 
-__all__ = ["Limits", "Plan", "PlanCommand", "check_sendable", "describe_plan", "load_plan_file",
-           "parse_plan"]
+__all__ = ["MAX_COMMANDS", "Limits", "Plan", "PlanCommand", "check_sendable", "describe_plan",
+           "load_plan_file", "parse_plan"]
+
+#: The most commands a plan may expand to (counted before expanding).
+MAX_COMMANDS = 100_000
 
 _TOP = {"levels", "dwell", "repeats", "rest", "lead_in", "gain_settle", "limits", "commands",
         "gains"}
@@ -86,6 +102,14 @@ class Plan:
     limits: Limits | None
     lead_in: float
     source: str = "plan"
+    safe_value: float | None = None  # the setpoint the safe command sends, when it is one
+    safe_unchecked: bool = False  # the plan allows a safe command that is not a setpoint
+
+    @property
+    def lines(self) -> frozenset[str]:
+        """Every command line the plan may send (the runner sends nothing else)."""
+        return frozenset([c.text for c in self.commands]
+                         + ([self.safe] if self.safe is not None else []))
 
     @property
     def duration(self) -> float:
@@ -142,24 +166,12 @@ def _fields(template: str, what: str, src: str) -> set[str]:
     return names
 
 
-def _render(template: str, what: str, src: str, **values: object) -> str:
-    try:
-        text = template.format(**values)
-    except KeyError as exc:
-        raise InputError(f"{what} template {template!r}: no value for {{{exc.args[0]}}}",
-                         source=src) from None
-    except (ValueError, IndexError, AttributeError) as exc:
-        raise InputError(f"{what} template {template!r}: {exc}", source=src) from None
-    if "\n" in text or "\r" in text:
-        raise InputError(f"{what} template {template!r} must be one line", source=src)
-    return text
-
-
 GainSet = tuple[str, dict[str, int | float]]
 
 
 def _gain_sets(doc: dict[str, Any], src: str) -> list[GainSet]:
-    """The ``[[gains]]`` tables as (name, gains); values kept as written (20, not 20.0)."""
+    """The ``[[gains]]`` tables as (name, gains); values kept as written (20, not 20.0);
+    a name is printable text (it becomes a tag and a note in the recording)."""
     raw = doc.get("gains", [])
     if not isinstance(raw, list) or not all(isinstance(g, dict) for g in raw):
         raise InputError("gains must be a list of tables ([[gains]])", source=src)
@@ -170,60 +182,86 @@ def _gain_sets(doc: dict[str, Any], src: str) -> list[GainSet]:
             _num(values, key, f"{src}, gains {k}")
         if not values:
             raise InputError(f"gain set {k} has no gains", source=src)
-        sets.append((str(g.get("name", f"set {k}")), values))
+        name = str(g.get("name", f"set {k}"))
+        if not name.isprintable() or any(ch in name for ch in SEPARATORS) or len(name) > 64:
+            raise InputError(f"gain set {k}: its name {name!r} must be printable text of at"
+                             f" most 64 characters without {SEPARATORS}", source=src)
+        sets.append((name, values))
     return sets
 
 
-def _templates(doc: dict[str, Any], src: str, gains: bool) -> dict[str, str]:
+def _templates(doc: dict[str, Any], src: str,
+               sets: list[GainSet]) -> tuple[dict[str, Any], Template, Template | None]:
     """The ``[commands]`` table, checked: a setpoint template with only ``{value}``, a gains
-    template when there are gain sets, a known line ending."""
+    template when there are gain sets, a known line ending, a literal safe command, every
+    template's text as it will be sent (:mod:`livestep.live.plan_text`)."""
     cmds = doc.get("commands", {})
     if not isinstance(cmds, dict):
         raise InputError("commands must be a table", source=src)
-    bad = sorted(set(cmds) - {"setpoint", "gains", "safe", "eol"})
+    bad = sorted(set(cmds) - {"setpoint", "gains", "safe", "eol", "safe_unchecked"})
     if bad:
         raise InputError(f"unknown key commands.{bad[0]}", source=src)
-    if not all(isinstance(v, str) for v in cmds.values()):
+    if not all(isinstance(v, str) for k, v in cmds.items() if k != "safe_unchecked"):
         raise InputError("commands.* must be strings", source=src)
+    if not isinstance(cmds.get("safe_unchecked", False), bool):
+        raise InputError("commands.safe_unchecked must be true or false", source=src)
     if "setpoint" not in cmds:
         raise InputError("commands.setpoint (the setpoint command template) is missing",
                          source=src)
     if not _fields(cmds["setpoint"], "setpoint", src) <= {"value"}:
         raise InputError(f"setpoint template {cmds['setpoint']!r}: its only field is"
                          " {value}", source=src)
-    if gains and "gains" not in cmds:
+    setpoint = parse_template(cmds["setpoint"], "setpoint", src, numeric={"value"})
+    if len(setpoint.fields) != 1:
+        raise InputError(f"setpoint template {cmds['setpoint']!r}: {{value}} exactly once",
+                         source=src)
+    gains = None
+    if sets and "gains" not in cmds:
         raise InputError("gain sets need commands.gains (the gains command template)",
                          source=src)
+    if sets:
+        keys = {key for _, values in sets for key in values}
+        gains = parse_template(cmds["gains"], "gains", src, numeric=keys, names={"name"})
     if cmds.get("eol", "\n") not in ("\n", "\r\n", "\r"):
         raise InputError("commands.eol must be \\n, \\r\\n or \\r", source=src)
-    return cmds
+    if "safe" in cmds:
+        check_line(cmds["safe"], "commands.safe", src)
+    return cmds, setpoint, gains
 
 
 def _expand(levels: list[int | float], repeats: int, dwell: float, settle: float,
-            sets: list[GainSet], cmds: dict[str, str], src: str) -> list[PlanCommand]:
+            sets: list[GainSet], setpoint: Template, gains: Template | None,
+            src: str) -> list[PlanCommand]:
     """Each gain set's command, then its levels ``repeats`` times, with their tags."""
+    count = max(1, len(sets)) * (repeats * len(levels) + (1 if sets else 0))
+    if count > MAX_COMMANDS:
+        raise InputError(f"the plan would expand to {count} commands (at most"
+                         f" {MAX_COMMANDS}): fewer repeats, levels or gain sets", source=src)
     out: list[PlanCommand] = []
+    rendered = {written: setpoint.render("setpoint", src, value=written)
+                for written in dict.fromkeys(levels)}
     for name, values in sets or [("", {})]:
         gain_tags = (("gains", name),) if sets else ()
         if sets:
-            text = _render(cmds["gains"], "gains", src, name=name, **values)
+            assert gains is not None
+            text = gains.render("gains", src, name=name, **values)
             out.append(PlanCommand(entry=len(out) + 1, kind="gains", text=text, dwell=settle,
                                    tags=gain_tags))
         for r in range(repeats):
             for written in levels:
                 level, entry = float(written), len(out) + 1
-                text = _render(cmds["setpoint"], "setpoint", src, value=written)
                 tags = (("plan_entry", str(entry)), ("setpoint", f"{level:g}"),
                         ("repeat", str(r + 1)), *gain_tags)
-                out.append(PlanCommand(entry=entry, kind="setpoint", text=text, dwell=dwell,
-                                       value=level, tags=tags))
+                out.append(PlanCommand(entry=entry, kind="setpoint", text=rendered[written],
+                                       dwell=dwell, value=level, tags=tags))
     return out
 
 
 def parse_plan(doc: dict[str, Any], source: str = "plan") -> Plan:
     """Validate a plan document and expand it into commands; raises :class:`InputError`
     (one line) for anything wrong, including a level outside the limits or a step larger
-    than ``max_step`` when limits are given."""
+    than ``max_step`` when limits are given, and any command line that is not what it
+    stands for (see the module docstring)."""
     src = source
     unknown = sorted(set(doc) - _TOP)
     if unknown:
@@ -241,19 +279,22 @@ def parse_plan(doc: dict[str, Any], source: str = "plan") -> Plan:
         raise InputError("repeats must be a whole number >= 1", source=src)
     rest = _num(doc, "rest", src)
     sets = _gain_sets(doc, src)
-    cmds = _templates(doc, src, gains=bool(sets))
+    cmds, setpoint, gains = _templates(doc, src, sets)
     commands = _expand(levels, repeats, dwell, _seconds(doc, "gain_settle", src, 0.2), sets,
-                       cmds, src)
-    safe = None
+                       setpoint, gains, src)
+    safe, safe_value = None, None
     if "safe" in cmds:
-        safe = _render(cmds["safe"], "safe", src)
+        safe = cmds["safe"]
+        safe_value = read_setpoint(setpoint, safe)
     elif rest is not None:
-        safe = _render(cmds["setpoint"], "setpoint", src, value=doc["rest"])
+        safe = setpoint.render("setpoint", src, value=doc["rest"])
+        safe_value = rest
     plan = Plan(commands=tuple(commands), safe=safe, eol=cmds.get("eol", "\n"), rest=rest,
                 limits=_limits(doc, src), lead_in=_seconds(doc, "lead_in", src, dwell),
-                source=src)
+                source=src, safe_value=safe_value,
+                safe_unchecked=cmds.get("safe_unchecked", False))
     if plan.limits is not None:
-        _check_limits(plan)
+        _check_limits(plan, setpoint)
     return plan
 
 
@@ -277,7 +318,7 @@ def _limits(doc: dict[str, Any], src: str) -> Limits | None:
     return Limits(low=lo, high=hi, max_step=step)
 
 
-def _check_limits(plan: Plan) -> None:
+def _check_limits(plan: Plan, setpoint: Template) -> None:
     lim = plan.limits
     assert lim is not None
     src = plan.source
@@ -295,6 +336,33 @@ def _check_limits(plan: Plan) -> None:
             raise InputError(f"{where}: a change of {seq[k] - seq[k - 1]:+g} from {seq[k - 1]:g}"
                              f" to {seq[k]:g} exceeds limits.max_step = {lim.max_step:g}",
                              source=src)
+    _check_safe(plan, setpoint)
+
+
+def _check_safe(plan: Plan, setpoint: Template) -> None:
+    """The safe command is a setpoint inside the limits, within ``max_step`` of every level
+    (it is sent whenever the plan stops), unless the plan allows an unchecked one."""
+    lim, src, safe, v = plan.limits, plan.source, plan.safe, plan.safe_value
+    assert lim is not None
+    if safe is None:
+        return
+    if v is None:
+        if plan.safe_unchecked:
+            return
+        raise InputError(f"commands.safe {safe!r} is not a setpoint command like"
+                         f" {setpoint.text!r}, so it cannot be checked against the limits;"
+                         " set commands.safe_unchecked = true to send it unchecked",
+                         source=src)
+    if not lim.low <= v <= lim.high:
+        raise InputError(f"the safe command {safe!r} sends {v:g}, outside the limits"
+                         f" [{lim.low:g}, {lim.high:g}]", source=src)
+    levels = [c.value for c in plan.commands if c.value is not None]
+    worst = max(levels, key=lambda x: abs(x - v))
+    if abs(worst - v) > lim.max_step:
+        raise InputError(f"the safe command {safe!r}: the return to {v:g} from level"
+                         f" {worst:g} (a change of {v - worst:+g}; it is sent whenever the"
+                         f" plan stops) exceeds limits.max_step = {lim.max_step:g}",
+                         source=src)
 
 
 def check_sendable(plan: Plan) -> None:
@@ -318,8 +386,14 @@ def describe_plan(plan: Plan) -> list[str]:
         lim = plan.limits
         lines.append(f"limits: setpoint {lim.low:g} .. {lim.high:g}, largest change"
                      f" {lim.max_step:g}")
+    if plan.safe is None:
+        checked = ""
+    elif plan.safe_value is not None:
+        checked = f" (the setpoint {plan.safe_value:g})"
+    else:
+        checked = " (NOT a setpoint: not checked against the limits)"
     lines.append(f"rest: {'-' if plan.rest is None else f'{plan.rest:g}'};"
-                 f" safe command: {plan.safe!r}")
+                 f" safe command: {plan.safe!r}{checked}")
     lines.append(f"{len(plan.commands)} commands over {plan.duration:.1f} s, after"
                  f" {plan.lead_in:g} s of data:")
     t = 0.0

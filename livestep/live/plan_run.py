@@ -8,6 +8,9 @@ command through the link at its time, adds the command's tags as notes to the se
 recording keeps them), and when the plan is done, or on Ctrl-C, SIGTERM, an error or a lost
 link, sends the safe command once if the link is up.
 
+Only the lines of the checked plan (:attr:`~livestep.live.plan.Plan.lines`) are ever written
+to the port: that is checked again just before each write.
+
 One command is sent at a time, and each gets its whole dwell from the moment it was sent
 (a command delayed by a busy moment never shortens the next level or bunches commands up).
 
@@ -136,7 +139,13 @@ class PlanRunner:
         return EXIT_INTERRUPTED
 
     # -- internals --------------------------------------------------------------------------
+    def _checked(self, text: str) -> None:
+        """The last gate before the port: only a line of the checked plan goes out."""
+        if text not in self.plan.lines:
+            raise InputError(f"refused to send {text!r}: not a command of the checked plan")
+
     def _send(self, text: str) -> bool:
+        self._checked(text)
         link = self._link
         if link is None or link.state != "connected":
             self._lose("the link is down")
@@ -174,6 +183,7 @@ class PlanRunner:
             self.out(f"plan: the link is down: the safe command {self.plan.safe!r} was NOT sent")
             self.safe_sent = True  # once: it is not retried later
             return
+        self._checked(self.plan.safe)
         try:
             link.write((self.plan.safe + self.plan.eol).encode())
         except (InputError, OSError, serial.SerialException):

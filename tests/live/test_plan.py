@@ -92,7 +92,7 @@ def test_safe_command_defaults_to_the_setpoint_at_rest():
     ({"commands": {}}, "commands.setpoint .* is missing"),
     ({"commands": {"setpoint": "sp {level}"}}, "its only field is {value}"),
     ({"commands": {"setpoint": "sp {}"}}, "use named fields"),
-    ({"commands": {"setpoint": "sp {value:q}"}}, "Unknown format code"),
+    ({"commands": {"setpoint": "sp {value:q}"}}, "not a plain number format"),
     ({"commands": {"setpoint": "sp {value"}}, "setpoint template"),
     ({"commands": {"setpoint": "sp {value}", "eol": ";"}}, "commands.eol"),
     ({"gains": [{"kp": 1.0}]}, "gain sets need commands.gains"),
@@ -139,11 +139,13 @@ def test_the_readme_plan_is_the_shipped_fixture_and_is_sendable():
        rest=st.floats(-5, 5).map(lambda x: round(x, 2)), repeats=st.integers(1, 3))
 def test_limits_accept_exactly_the_plans_that_respect_them(levels, rest, repeats):
     # The rule written out independently: every level and rest in [-2, 2]; every change
-    # along rest, levels, levels (repeats times) at most 1.5.
+    # along rest, levels, levels (repeats times) at most 1.5; and the safe command (here the
+    # setpoint at rest) at most 1.5 from every level, since the plan may stop at any level.
     lo, hi, max_step = -2.0, 2.0, 1.5
     seq = [rest] + levels * repeats
     ok = (all(lo <= x <= hi for x in seq)
-          and all(abs(b - a) <= max_step for a, b in zip(seq, seq[1:], strict=False)))
+          and all(abs(b - a) <= max_step for a, b in zip(seq, seq[1:], strict=False))
+          and all(abs(x - rest) <= max_step for x in levels))
     doc = base(levels=levels, rest=rest, repeats=repeats)
     if ok:
         plan = parse_plan(doc)
@@ -151,3 +153,96 @@ def test_limits_accept_exactly_the_plans_that_respect_them(levels, rest, repeats
     else:
         with pytest.raises(InputError):
             parse_plan(doc)
+
+
+# -- what is sent is what is checked (issue 15) ------------------------------------------
+HOSTILE = {"levels": [2.0, 1.0], "dwell": 1.0, "rest": 0.0,
+           "limits": {"min": -1.0, "max": 3.0, "max_step": 2.0}}
+
+
+@pytest.mark.parametrize("commands,message", [
+    # a literal safe command outside the limits, or too far from a level
+    ({"setpoint": "sp {value}", "safe": "sp 1000"}, "sends 1000, outside the limits"),
+    ({"setpoint": "sp {value}", "safe": "sp -1"}, "return to -1 from level 2 .* exceeds"),
+    # not a setpoint command: cannot be checked, refused unless allowed explicitly
+    ({"setpoint": "sp {value}", "safe": "motor off"}, "safe_unchecked = true"),
+    # templates that change the number after the check
+    ({"setpoint": "sp {value}0"}, "touches '0'"),
+    ({"setpoint": "sp -{value}"}, "touches '-'"),
+    ({"setpoint": "sp {value}e3"}, "touches 'e'"),
+    ({"setpoint": "sp {value!s:0<5}"}, "no conversion"),
+    ({"setpoint": "sp {value:0<5}"}, "pads with characters"),
+    ({"setpoint": "sp {value:x>5}"}, "pads with characters"),
+    ({"setpoint": "sp {value:.0%}"}, "scales the number by 100"),
+    ({"setpoint": "sp {value:,}"}, "groups digits"),
+    ({"setpoint": "sp {value:n}"}, "depends on the locale"),
+    ({"setpoint": "sp {value:.0f}"}, "renders 2.5 as '2'"),  # rounding: not the checked number
+    ({"setpoint": "sp {value} {value}"}, "exactly once"),
+    # a second command smuggled in, or a control character
+    ({"setpoint": "sp {value}; sp 1000"}, "one command per line"),
+    ({"setpoint": "sp {value} | reboot"}, "one command per line"),
+    ({"setpoint": "sp {value}\nsp 1000"}, "printable ASCII"),
+    ({"setpoint": "sp {value}", "safe": "sp 0\x00"}, "printable ASCII"),
+    ({"setpoint": "sp\u202e {value}"}, "printable ASCII"),  # invisible: reverses the display
+])
+def test_every_line_sent_is_checked_as_sent(commands, message):
+    levels = [2.5, -1.0] if "renders" in message else HOSTILE["levels"]
+    doc = {**HOSTILE, "levels": levels, "commands": commands}
+    with pytest.raises(InputError, match=message) as info:
+        parse_plan(doc, source="hostile.toml")
+    assert "\n" not in str(info.value)
+
+
+def test_a_gain_set_name_cannot_carry_lines_or_separators():
+    for name in ("soft\n999999,7,7\n# segment: 5", "a\x00b", "x; sp 1000", "esc\x1b[2J"):
+        doc = {**HOSTILE, "commands": {"setpoint": "sp {value}", "gains": "g {name} {kp}"},
+               "gains": [{"name": name, "kp": 1}]}
+        with pytest.raises(InputError, match="gain set 1: its name"):
+            parse_plan(doc)
+    doc = {**HOSTILE, "commands": {"setpoint": "sp {value}", "gains": "kp={kp!r}"},
+           "gains": [{"name": "ok", "kp": 1}]}
+    with pytest.raises(InputError, match="no conversion"):
+        parse_plan(doc)
+
+
+def test_an_unchecked_safe_command_needs_saying_so_and_is_shown_as_such():
+    doc = {**HOSTILE, "commands": {"setpoint": "sp {value}", "safe": "motor off",
+                                   "safe_unchecked": True}}
+    plan = parse_plan(doc)
+    assert plan.safe == "motor off" and plan.safe_value is None
+    assert "NOT a setpoint: not checked" in "\n".join(describe_plan(plan))
+
+
+def test_the_return_to_rest_is_checked_against_max_step():
+    # From the issue: min -1, max 3, max_step 2; ending on 3 and returning to rest 0 is -3.
+    doc = {**HOSTILE, "levels": [1.0, 3.0], "commands": {"setpoint": "sp {value:g}"}}
+    with pytest.raises(InputError, match="return to 0 from level 3 \\(a change of -3"):
+        parse_plan(doc)
+
+
+def test_repeats_are_bounded_before_expanding():
+    from livestep.live.plan import MAX_COMMANDS
+
+    for repeats in (10**9, 3 * 10**7, MAX_COMMANDS // 2 + 1):
+        doc = {**HOSTILE, "repeats": repeats, "commands": {"setpoint": "sp {value}"}}
+        with pytest.raises(InputError, match=f"at most {MAX_COMMANDS}"):
+            parse_plan(doc)  # refused at once, nothing expanded
+
+
+@settings(max_examples=200, deadline=None)
+@given(levels=st.lists(st.floats(-1e6, 1e6, allow_nan=False), min_size=1, max_size=4),
+       spec=st.sampled_from(["", ":g", ":.3f", ":e", ":+.6g", ":08.2f", ": g", ":#g", ":>9g",
+                             ":.1f", ":G", ":E", ":.12g"]))
+def test_a_rendered_setpoint_is_the_number_checked_or_the_plan_is_refused(levels, spec):
+    # Outside check: whatever the plan sends, Python's float() of the number in the line is
+    # the level it stands for (to 1e-9), or parse_plan refused the plan.
+    doc = {"levels": levels, "dwell": 1.0, "commands": {"setpoint": "SP {value" + spec + "}"}}
+    try:
+        plan = parse_plan(doc)
+    except InputError as err:
+        assert "renders" in str(err)
+        return
+    for cmd in plan.commands:
+        assert cmd.text.startswith("SP ")
+        assert float(cmd.text[3:]) == pytest.approx(cmd.value, rel=1e-9, abs=1e-12)
+        assert all(" " <= ch <= "~" for ch in cmd.text)
