@@ -64,19 +64,23 @@ def expm2(a: FloatArray, tau: FloatArray) -> FloatArray:
     q2 = s * s - (a[0, 0] * a[1, 1] - a[0, 1] * a[1, 0])
     scale = max(abs(s), 1e-300)
     if q2 > 1e-12 * scale * scale:
+        # e^(s tau) cosh and sinh from the two real exponents s +- q, which stay finite
+        # however heavily damped the system is (e^(q tau) alone overflows)
         q = math.sqrt(q2)
-        c, sn = np.cosh(q * tau), np.sinh(q * tau) / q
+        fast, slow = np.exp((s - q) * tau), np.exp((s + q) * tau)
+        ec, esn = 0.5 * (slow + fast), (slow - fast) / (2.0 * q)
     elif q2 < -1e-12 * scale * scale:
         w = math.sqrt(-q2)
-        c, sn = np.cos(w * tau), np.sin(w * tau) / w
+        e = np.exp(s * tau)
+        ec, esn = e * np.cos(w * tau), e * np.sin(w * tau) / w
     else:
-        c, sn = np.ones_like(tau), tau.copy()
-    e = np.exp(s * tau)
+        e = np.exp(s * tau)
+        ec, esn = e, e * tau
     out = np.empty(tau.shape + (2, 2))
-    out[..., 0, 0] = e * (c - s * sn + sn * a[0, 0])
-    out[..., 0, 1] = e * sn * a[0, 1]
-    out[..., 1, 0] = e * sn * a[1, 0]
-    out[..., 1, 1] = e * (c - s * sn + sn * a[1, 1])
+    out[..., 0, 0] = ec - s * esn + esn * a[0, 0]
+    out[..., 0, 1] = esn * a[0, 1]
+    out[..., 1, 0] = esn * a[1, 0]
+    out[..., 1, 1] = ec - s * esn + esn * a[1, 1]
     return out
 
 

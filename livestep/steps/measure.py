@@ -403,12 +403,14 @@ def measure_step(
     settling_time = None
     if settle_t is not None:
         # In the band for at least one rise time (common practice, no source), 10 samples,
-        # 5 % of the window and, when the response overshoots the band, 1.5 times the time
-        # from the low crossing to the peak (about 0.7 of a period: past the next
-        # extremum), ...
-        swing = (0.0 if peak_time is None or t_lo is None or overshoot <= 100.0 * band
+        # 5 % of the window and, when the next extremum after the first peak may still be
+        # outside the band, the time from the low crossing to the peak (about half a period:
+        # past the next extremum). Each extremum of a second-order response is the one
+        # before it times the overshoot fraction (Ogata, the log decrement), so that is
+        # when the overshoot squared exceeds the band, ...
+        swing = (0.0 if peak_time is None or t_lo is None or (overshoot / 100.0) ** 2 <= band
                  else peak_time - (t_lo - t_step))
-        hold = max(10.0 * dt, 0.05 * span, rise or 0.0, 1.5 * swing)
+        hold = max(10.0 * dt, 0.05 * span, rise or 0.0, swing)
         # ... and the tail that gives the final level not still moving (a straight line
         # fitted to it drifts by less than the band's half-width over the tail).
         sel = post_t >= tail_from

@@ -14,7 +14,7 @@ from livestep.bench.plants import AxisParams, AxisPlant, Gains, SecondOrderPlant
 from livestep.steps.measure import measure_step
 
 
-@pytest.mark.parametrize("zeta", [0.3, 1.0, 2.5])
+@pytest.mark.parametrize("zeta", [0.3, 1.0, 2.5, 20.0, 500.0])
 def test_expm2_matches_scipy(zeta):
     # Reference: scipy.linalg.expm (Pade approximation with scaling and squaring).
     wn = 40.0
@@ -25,7 +25,7 @@ def test_expm2_matches_scipy(zeta):
         np.testing.assert_allclose(g, expm(a * tau), rtol=1e-10, atol=1e-12)
 
 
-@pytest.mark.parametrize("zeta", [0.35, 1.0, 1.8])
+@pytest.mark.parametrize("zeta", [0.35, 1.0, 1.8, 20.0])
 def test_second_order_plant_is_the_closed_form_response(zeta):
     # Two setpoint changes (0 -> 2 at sample 100, 2 -> -1 at sample 900) through a dead time
     # that is not a whole number of samples. Reference: by linearity the response is
