@@ -127,7 +127,7 @@ def run_analyze(args: argparse.Namespace) -> int:
             add_guidance(doc, results, profile, band)
         write_json(doc, sys.stdout)
     elif args.csv:
-        from livestep.reports.tables import write_csv
+        from livestep.reports.csv_rows import write_csv
         write_csv(results, sys.stdout, verdicts)
     else:
         from livestep.reports.tables import render_guidance, render_statistics, render_table

@@ -23,8 +23,8 @@ from livestep.judge.quantities import QUANTITIES, Quantity
 from livestep.steps.analysis import StepResult
 
 __all__ = ["FAIL", "NOT_MEASURED", "PASS", "SYMBOLS", "WARN", "Check", "StepVerdict",
-           "check_limit", "describe_check", "format_seconds", "format_value", "gate_status",
-           "judge", "verdict_summary", "worst"]
+           "check_limit", "describe_check", "format_difference", "format_seconds",
+           "format_value", "gate_status", "judge", "verdict_summary", "worst"]
 
 PASS, WARN, FAIL, NOT_MEASURED = "pass", "warn", "fail", "not measured"
 
@@ -79,6 +79,14 @@ def format_value(q: Quantity, x: float | None) -> str:
     return f"{x:.3g} {q.unit}".rstrip()
 
 
+def format_difference(q: Quantity, x: float | None) -> str:
+    """A difference of two values (a margin), as :func:`format_value` but in percentage
+    points for a quantity in percent: "2 pp" is the distance from 8 % to 10 %."""
+    if x is not None and q.unit == "%":
+        return f"{x:.3g} pp"
+    return format_value(q, x)
+
+
 def check_limit(q: Quantity, value: float | None, low: float | None, high: float | None,
                 warn: float = 0.0, rule: str = "") -> Check:
     """Judge one value against ``[low, high]`` (either may be ``None``)."""
@@ -96,7 +104,8 @@ def check_limit(q: Quantity, value: float | None, low: float | None, high: float
                      f"{where} {format_value(q, limit)}", rule)
     if margin < warn:
         return Check(q.name, value, low, high, limit, margin, WARN,
-                     f"within {format_value(q, warn)} of the limit {format_value(q, limit)}",
+                     f"within {format_difference(q, warn)} of the limit"
+                     f" {format_value(q, limit)}",
                      rule)
     return Check(q.name, value, low, high, limit, margin, PASS, "", rule)
 

@@ -38,7 +38,9 @@ def report_quantities(results: Sequence[StepResult], profile: Profile | None) ->
 
 def cp(s: MetricStats) -> float | None:
     """Cp = (USL - LSL) / (6 s) with both limits, else ``None`` (NIST/SEMATECH
-    e-Handbook of Statistical Methods, section 6.1.6, from memory)."""
-    if s.low is None or s.high is None or not s.std:
+    e-Handbook of Statistical Methods, section 6.1.6, from memory); like Cpk, not from
+    fewer values than :data:`livestep.judge.statistics.CPK_MIN_COUNT` (``s.cpk_note``
+    says why)."""
+    if s.low is None or s.high is None or not s.std or s.cpk is None:
         return None
     return (s.high - s.low) / (6.0 * s.std)

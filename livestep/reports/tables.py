@@ -1,8 +1,7 @@
-"""Step results as JSON documents, CSV rows and rich tables."""
+"""Step results as JSON documents and rich tables (CSV rows: :mod:`.csv_rows`)."""
 
 from __future__ import annotations
 
-import csv
 import json
 import math
 from collections.abc import Sequence
@@ -16,13 +15,19 @@ from rich.table import Table
 from livestep.judge.compare import Comparison
 from livestep.judge.profile import Profile
 from livestep.judge.quantities import QUANTITIES, display_unit
-from livestep.judge.statistics import GroupStats, MetricStats
+from livestep.judge.statistics import (
+    CPK_MIN_COUNT,
+    NOTE_LIMITS_DIFFER,
+    NOTE_NO_LIMIT,
+    GroupStats,
+    MetricStats,
+)
 from livestep.judge.verdict import SYMBOLS, StepVerdict, describe_check
 from livestep.steps.analysis import StepResult
 
 __all__ = ["STEP_FIELDS", "add_guidance", "analysis_document", "comparison_document",
            "render_comparison", "render_guidance", "render_statistics", "render_table",
-           "statistics_records", "step_record", "write_csv", "write_json"]
+           "statistics_records", "step_record", "write_json"]
 
 #: Keys of each step in the JSON document, in order (a stable contract).
 STEP_FIELDS = (
@@ -88,30 +93,19 @@ def write_json(doc: dict[str, Any], out: IO[str]) -> None:
     out.write("\n")
 
 
-def write_csv(results: Sequence[StepResult], out: IO[str],
-              verdicts: Sequence[StepVerdict] | None = None) -> None:
-    """One row per step; model values as ``model_<name>``, warnings joined by ``; ``;
-    with verdicts, a ``verdict`` column and ``failed`` (the quantities that failed)."""
-    w = csv.writer(out, lineterminator="\n")
-    extra = ["verdict", "failed"] if verdicts is not None else []
-    w.writerow([*STEP_FIELDS, *(f"model_{k}" for k in MODEL_FIELDS), "warnings", *extra])
-    for i, r in enumerate(results):
-        rec = step_record(r)
-        model = rec["model"] or {}
-        row = [*("" if rec[k] is None else rec[k] for k in STEP_FIELDS),
-               *("" if model.get(k) is None else model[k] for k in MODEL_FIELDS),
-               "; ".join(rec["warnings"])]
-        if verdicts is not None:
-            row += [verdicts[i].verdict, " ".join(c.quantity for c in verdicts[i].failed())]
-        w.writerow(row)
+def _no_negative_zero(text: str) -> str:
+    """"-0.00" (a tiny negative number rounded) as "0.00"."""
+    if text.startswith("-") and not any(ch in "123456789" for ch in text.split("e")[0]):
+        return text[1:]
+    return text
 
 
 def _ms(x: float | None, fmt: str = ".1f") -> str:
-    return "-" if x is None else format(1e3 * x, fmt)
+    return "-" if x is None else _no_negative_zero(format(1e3 * x, fmt))
 
 
 def _num(x: float | None, fmt: str = ".4g") -> str:
-    return "-" if x is None else format(x, fmt)
+    return "-" if x is None else _no_negative_zero(format(x, fmt))
 
 
 def _compact_table(title: str, caption: str) -> Table:
@@ -178,7 +172,7 @@ def _scaled(name: str) -> tuple[float, str]:
 
 
 def _shown(name: str, x: float | None, fmt: str = ".4g") -> str:
-    return "-" if x is None else format(_scaled(name)[0] * x, fmt)
+    return "-" if x is None else _no_negative_zero(format(_scaled(name)[0] * x, fmt))
 
 
 _UNIT_CAPTION = "times in ms; fb: feedback units"
@@ -197,14 +191,30 @@ def _limits_text(name: str, low: float | None, high: float | None) -> str:
 def _stats_record(s: MetricStats) -> dict[str, Any]:
     return {"count": s.count, "missing": s.missing, "mean": _clean(s.mean),
             "std": _clean(s.std), "min": _clean(s.min), "max": _clean(s.max),
-            "low": s.low, "high": s.high, "cpk": _clean(s.cpk)}
+            "low": s.low, "high": s.high, "cpk": _clean(s.cpk), "cpk_note": s.cpk_note,
+            "limits_differ": s.limits_differ}
+
+
+#: A limits cell of the statistics table where a group's steps have different limits.
+LIMITS_DIFFER_TEXT = "per step"
+#: Cpk cells that say why it is not computed ("n < 30", "s = 0" are shown as they are).
+_CPK_NOTE_TEXT = {NOTE_LIMITS_DIFFER: "limits vary", NOTE_NO_LIMIT: "-"}
+
+
+def _cpk_cell(s: MetricStats) -> str:
+    """Cpk, or why it is not computed."""
+    if s.cpk is not None:
+        return _no_negative_zero(f"{s.cpk:.3g}")
+    return _CPK_NOTE_TEXT.get(s.cpk_note, s.cpk_note or "-")
 
 
 def statistics_records(groups: Sequence[GroupStats]) -> list[dict[str, Any]]:
     """:func:`livestep.judge.statistics.session_statistics` as JSON-ready dicts: per group
     ``by``, ``key``, ``steps`` (indices) and ``metrics`` by quantity (its unit: seconds,
     percent...): ``count``, ``missing``, ``mean``, ``std`` (sample, n - 1), ``min``,
-    ``max``, ``low``, ``high`` (the limits Cpk is against) and ``cpk``."""
+    ``max``, ``low``, ``high`` (the limits Cpk is against), ``cpk``, ``cpk_note`` (why
+    it is null: "no limit", "limits differ between steps", "n < 30", "s = 0"; empty when
+    computed) and ``limits_differ`` (the group's steps have different limits)."""
     return [{"by": g.by, "key": g.key, "steps": list(g.steps),
              "metrics": {m.quantity: _stats_record(m) for m in g.metrics}} for g in groups]
 
@@ -225,12 +235,19 @@ def render_statistics(groups: Sequence[GroupStats], console: Console) -> None:
     if not groups or not groups[0].metrics:
         return
     every = groups[0]
-    limited = any(m.low is not None or m.high is not None for m in every.metrics)
+    limited = any(m.low is not None or m.high is not None or m.limits_differ
+                  for m in every.metrics)
     caption = ("delay: to 50 %; OS, US: overshoot, undershoot; SSE: |steady-state error|;"
                f" {_UNIT_CAPTION}; s: sample standard deviation (n - 1); all quantities and"
                " groups: --json")
     if limited:
-        caption += "; Cpk = min(USL - mean, mean - LSL) / 3s, one-sided with one limit"
+        caption += ("; Cpk = min(USL - mean, mean - LSL) / 3s, one-sided with one limit,"
+                    f" computed from n >= {CPK_MIN_COUNT} steps (a rule of thumb: fewer give"
+                    " an index that is mostly noise)")
+        if any(m.limits_differ for m in every.metrics):
+            caption += (f"; limits {LIMITS_DIFFER_TEXT}: {escape('[[when]]')} sections give"
+                        " some steps other limits, so no one limit or Cpk covers all steps"
+                        " (per group: --json)")
     table = _compact_table(f"statistics over {len(every.steps)} steps", caption)
     table.add_column("", no_wrap=True)
     table.add_column("unit", no_wrap=True)
@@ -243,7 +260,8 @@ def render_statistics(groups: Sequence[GroupStats], console: Console) -> None:
         cells = [STATISTICS_ROWS[q], _scaled(q)[1], str(m.count), _shown(q, m.mean, ".3g"),
                  _shown(q, m.std, ".3g"), _shown(q, m.min, ".3g"), _shown(q, m.max, ".3g")]
         if limited:
-            cells += [_limits_text(q, m.low, m.high), "-" if m.cpk is None else f"{m.cpk:.3g}"]
+            limits = LIMITS_DIFFER_TEXT if m.limits_differ else _limits_text(q, m.low, m.high)
+            cells += [limits, _cpk_cell(m)]
         table.add_row(*cells)
     console.print(table)
     if len(groups) < 2:

@@ -226,8 +226,9 @@ def test_statistics_and_guidance_in_json(capsys, recording, write_file):
     values = [s["overshoot_pct"] for s in doc["steps"]]
     assert os_stats["count"] == 3 and os_stats["mean"] == pytest.approx(np.mean(values))
     assert os_stats["std"] == pytest.approx(np.std(values, ddof=1))
-    # Cpu = (USL - mean) / (3 s): negative, the mean is above the limit.
-    assert os_stats["cpk"] == pytest.approx((10 - np.mean(values)) / (3 * os_stats["std"]))
+    # Three steps are far fewer than the 30 Cpk needs: not computed, and why.
+    assert os_stats["cpk"] is None and os_stats["cpk_note"] == "n < 30"
+    assert (os_stats["high"], os_stats["limits_differ"]) == (10, False)
     assert {(g["by"], g["key"]) for g in doc["statistics"]} >= {("direction", "up"),
                                                                 ("direction", "down")}
     zeta_min = -math.log(0.1) / math.sqrt(math.pi**2 + math.log(0.1) ** 2)

@@ -22,10 +22,13 @@ from livestep.steps.samples import SampleChunk
 
 def test_cp_hand_worked() -> None:
     # values 1..5: mean 3, s = sqrt((4 + 1 + 0 + 1 + 4) / 4) = sqrt(2.5); limits 0 and 8
-    st = metric_stats("q", [1.0, 2.0, 3.0, 4.0, 5.0], 0.0, 8.0)
+    # (five values: the minimum count is lowered to 2 for the arithmetic)
+    st = metric_stats("q", [1.0, 2.0, 3.0, 4.0, 5.0], 0.0, 8.0, min_count=2)
     assert cp(st) == pytest.approx(8.0 / (6 * math.sqrt(2.5)))  # 0.8433
-    assert cp(metric_stats("q", [1.0, 2.0, 3.0], None, 8.0)) is None  # one limit
+    assert cp(metric_stats("q", [1.0, 2.0, 3.0], None, 8.0, min_count=2)) is None  # one limit
     assert cp(metric_stats("q", [1.0], 0.0, 8.0)) is None  # no spread below 2 values
+    # Cp follows Cpk's rule: not from fewer than 30 values (livestep.judge.statistics)
+    assert cp(metric_stats("q", [1.0, 2.0, 3.0, 4.0, 5.0], 0.0, 8.0)) is None
 
 
 def test_display_units() -> None:
