@@ -4,7 +4,9 @@
 of each kind: binary frames whose COBS decoding, length, type and CRC-16 check out, and
 text lines that are data (numbers, or two numeric ``name=value`` pairs). Whichever kind
 reaches :data:`EVIDENCE` items first, by the byte offset where its last item ends, wins;
-a boot banner, a half frame or a text-looking first value only delays the decision.
+a boot banner, a half frame or a text-looking first value only delays the decision. A
+banner that runs into the first frame (no delimiter between them) is cut off there and
+kept as log lines, so the first frame is decoded too.
 When neither kind has enough within the first :data:`PROBE_LIMIT` bytes (or at the end
 of the stream), the kind with more valid items wins (text on a tie). The decision is a
 function of the bytes alone, never of how they were split into reads, and
@@ -20,7 +22,7 @@ from livestep.decode.counters import LinkCounters
 from livestep.decode.frames import FRAME_LOG, FRAME_SAMPLES, MAX_CHANNELS, MAX_ENCODED, crc16
 from livestep.decode.lines import looks_like_data
 from livestep.steps.samples import SampleChunk
-from livestep.steps.tags import Note
+from livestep.steps.tags import Note, clean_text
 
 __all__ = ["EVIDENCE", "PROBE_LIMIT", "AutoDecoder", "Decoder", "is_valid_frame"]
 
@@ -168,9 +170,27 @@ class AutoDecoder:
             getattr(self._inner, "rejoin", lambda: None)()
         self._why = why
         data, self._buf = bytes(self._buf), bytearray()
+        if binary:
+            data = self._past_banner(data)
         out = self._inner.feed(data)
         self._say()
         return out
+
+    def _past_banner(self, data: bytes) -> bytes:
+        """The bytes from the first frame on when text (a boot banner) runs into it: the
+        first frame is then the end of the first delimited piece, after its last newline.
+        The banner's lines become log lines."""
+        z = data.find(0)
+        nl = data.rfind(b"\n", 0, z)
+        if z < 0 or nl < 0 or not is_valid_frame(data[nl + 1:z]):
+            return data
+        banner = data[:nl + 1].decode("utf-8", "replace").replace("\r", "").splitlines()
+        lines = [clean_text(line) for line in banner if line.strip()]
+        logs = getattr(self._inner, "logs", None)
+        if logs is not None:
+            logs.extend(lines)
+        self.counters.log_lines += len(lines)
+        return data[nl + 1:]
 
     def _say(self) -> None:
         """The decision, once the inner decoder knows its own layout (a text decoder) or at
