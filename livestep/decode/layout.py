@@ -137,6 +137,8 @@ def detect_layout(lines: list[bytes], fmt: TextFormat,
                 names, how = list(fmt.names), f"{kind}, columns named by option"
             elif found is not None:
                 names, how = found[0], f"{kind} with a header"
+                if found[2] is not None:
+                    how += " and a note column"
             else:
                 names, headerless = [f"col{i + 1}" for i in range(ncol)], True
                 how = f"{ncol} {kind} columns without a header, taken by position"
