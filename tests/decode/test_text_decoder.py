@@ -196,3 +196,60 @@ def test_a_lone_pair_of_a_pairs_stream_is_a_note_unless_it_names_a_column():
     text = "".join(lines[:30]) + "kp=3\nfeedback=1.5\n" + "".join(lines[30:])
     dec, _ = decode(text.encode())
     assert [(n.t, n.name, n.value) for n in dec.take_notes()] == [(0.029, "kp", "3")]
+
+
+# -- issue 15 --------------------------------------------------------------------------------
+ROWS = [f"{k * 0.001:.3f},{1.0 if k >= 30 else 0.0},{k * 0.01:.2f}\n" for k in range(N)]
+
+
+def test_a_note_column_is_cut_and_stamped_at_its_row():
+    rows = [r.rstrip("\n") + "," for r in ROWS]
+    rows[5] += "gains=A"
+    rows[40] += "operator swapped the belt"
+    rows[41] = "0.041,bad,0.41,gains=B"  # a bad row keeps its note, at the row before
+    text = "t,setpoint,feedback,note\n" + "\n".join(rows) + "\n"
+    for sizes in (None, [13] * 400):
+        dec, chunks = decode(text.encode(), sizes=sizes)
+        assert sum(len(c) for c in chunks) == N - 1 and dec.columns == ["t", "setpoint",
+                                                                         "feedback"]
+        assert [(n.t, n.name, n.value) for n in dec.take_notes()] == [
+            (0.005, "gains", "A"), (0.04, "note", "operator swapped the belt"),
+            (0.04, "gains", "B")]
+        assert dict(dec.counters.bad) == {} and dec.counters.log_lines == 1  # "bad" row
+
+
+def test_notes_before_the_first_sample_keep_one_value_per_name():
+    import tracemalloc
+
+    tracemalloc.start()
+    dec = TextDecoder()
+    for _ in range(50):
+        dec.feed(b"gains=A\nkp=1\n" * 2000)  # 200 000 note lines before any sample
+    dec.feed(("t,setpoint,feedback\n" + "".join(ROWS)).encode())
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    assert sorted((n.t, n.name, n.value) for n in dec.take_notes()) == [
+        (0.0, "gains", "A"), (0.0, "kp", "1")]
+    assert dec.counters.notes == 200_000 and peak < 8 << 20
+
+
+def test_control_characters_in_stream_notes_are_escaped():
+    dec, _ = decode(("gains=\x1b[2Jsoft\x07\n" + "t,setpoint,feedback\n" + "".join(ROWS)
+                     ).encode())
+    assert [(n.name, n.value) for n in dec.take_notes()] == [("gains", "\\x1b[2Jsoft\\x07")]
+
+
+@pytest.mark.parametrize(("first", "kept"), [
+    ("345,0.000,0.12", False),  # the cut end of a data row: never a sample
+    ("dback=0.5", False),  # the cut end of a pair: never a note
+    ("=\x13\x00", False),  # garbage
+    ("ting motor drive v2", True),  # a cut banner is a log line
+    ("t,setpoint,feedback", True),  # a whole header, when the port opened at a line start
+])
+def test_the_first_line_of_a_live_link_is_dropped_unless_plainly_not_data(first, kept):
+    dec = TextDecoder()
+    dec.rejoin()
+    chunks = dec.feed((first + "\n" + "".join(ROWS)).encode()) + dec.flush()
+    assert dec.counters.skipped == (0 if kept else 1)
+    assert sum(dec.counters.bad.values()) == 0 and sum(len(c) for c in chunks) == N
+    assert dec.take_notes() == []

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import gzip
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -170,3 +171,83 @@ def test_vectorised_note_cut_agrees_with_the_line_by_line_one(rows, index):
         lines.append(",".join(cells[:-1] if short and index != 3 else cells))
     block = ("\n".join(lines) + "\n").encode()
     assert _cut_column(block, index, 4, 7) == _cut_column_lines(block, index, 7)
+
+
+# -- hostile files (issue 15) ----------------------------------------------------------------
+def test_a_byte_order_mark_is_not_part_of_the_first_line(write_file):
+    reader, chunks = read_all(write_file("bom.csv", b"\xef\xbb\xbf" + GOOD.encode()))
+    assert reader.metadata == {"source": "bench 3", "units": "mm"}
+    assert sum(len(c) for c in chunks) == 10
+
+
+def test_a_missing_column_names_the_file(write_file):
+    with pytest.raises(InputError, match=r"x\.csv: no time column 't'"):
+        read_all(write_file("x.csv", "a,b,c\n1,2,3\n"))
+
+
+def test_a_header_line_over_64_kb_says_so(write_file):
+    with pytest.raises(InputError, match="line 2 is longer than 64 KB"):
+        read_all(write_file("long.csv", "# a: b\n" + "t" * 70_000 + ",feedback\n0,1\n"))
+
+
+def test_a_note_line_is_never_metadata(write_file):
+    text = "# note: 0 mode=a=b\n# note: garbage\n# note: 0.5 mode=c\n" + GOOD
+    reader, _ = read_all(write_file("n.csv", text))
+    assert "note" not in reader.metadata
+    assert [(n.t, n.name, n.value) for n in reader.notes] == [(0.0, "mode", "a=b"),
+                                                               (0.5, "mode", "c")]
+
+
+def test_blank_lines_cost_no_work_per_line(tmp_path):
+    from _work import count_work
+
+    def work(n_blank: int) -> int:
+        path = tmp_path / f"blank{n_blank}.csv.gz"
+        path.write_bytes(gzip.compress(b"\n" * n_blank))  # the issue: 194 KB of gzip, 122 s
+        _, w = count_work(lambda: pytest.raises(InputError, RecordingReader, path))
+        return w.opcodes
+
+    # Four times the blank lines: the Python work stays the same (skipped by bytes methods)
+    assert work(400_000) < work(100_000) + 2000
+    path = tmp_path / "gaps.csv"
+    path.write_text("t,setpoint,feedback\n" + "0,0,0\n" + "\n" * 300_000 + "0.001,0,1\n")
+    _, w = count_work(read_all, path)
+    assert w.opcodes < 200_000  # not one Python step per blank line
+    assert sum(len(c) for c in read_all(path)[1]) == 2
+
+
+def test_an_overlong_data_line_is_skipped_without_holding_it(tmp_path):
+    import tracemalloc
+
+    from livestep.sources.recording import MAX_LINE
+
+    path = tmp_path / "huge.csv"
+    before = "".join(f"{k * 0.001:.3f},0,{k}\n" for k in range(100))
+    after = "".join(f"{1 + k * 0.001:.3f},0,{k}\n" for k in range(100))
+    path.write_text("t,setpoint,feedback\n" + before + "9" * (20 * MAX_LINE) + "\n" + after)
+    tracemalloc.start()
+    reader, chunks = read_all(path)
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    assert reader.stats.reasons.get("overlong line") == 1
+    assert sum(len(c) for c in chunks) == 200
+    assert peak < 6 * MAX_LINE + (12 << 20)  # blocks of 4 MB, never the 20 MB line
+
+
+def test_a_flood_of_notes_before_the_header_stays_small(tmp_path):
+    path = tmp_path / "flood.csv"
+    path.write_text("# note: 0 gains=A\n" * 200_000 + GOOD)
+    reader, _ = read_all(path)
+    assert [(n.name, n.value) for n in reader.notes] == [("gains", "A")]
+
+
+@pytest.mark.parametrize("kind", ["fifo", "dir", "dev"])
+def test_only_regular_files_are_read(tmp_path, kind):
+    import os
+
+    path = {"fifo": tmp_path / "f.csv", "dir": tmp_path, "dev": Path("/dev/zero")}[kind]
+    if kind == "fifo":
+        os.mkfifo(path)
+    message = {"fifo": "is a FIFO", "dir": "is a directory", "dev": "character device"}[kind]
+    with pytest.raises(InputError, match=message):
+        RecordingReader(path)  # at once: a FIFO without a writer would block an open()

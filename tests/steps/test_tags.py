@@ -2,12 +2,16 @@
 
 from __future__ import annotations
 
+import re
+
 from hypothesis import assume, given
 from hypothesis import strategies as st
 
 from livestep.steps.tags import (
+    MAX_NOTE_NAMES,
     Note,
     NoteTimeline,
+    clean_text,
     format_note,
     parse_note,
     parse_notes,
@@ -61,3 +65,39 @@ def test_active_at_matches_a_linear_scan(raw, t):
         if n.t <= t:
             expect[n.name] = n.value
     assert tl.active_at(t) == tuple(sorted(expect.items()))
+
+
+# -- hostile text (issue 15) -----------------------------------------------------------------
+_OLD_NOTE = re.compile(r"\s*([A-Za-z_][\w.\-]*)\s*=\s*([^=]*?)\s*")  # the former definition
+
+
+@given(st.text(alphabet="ab_.-=1 \t:", max_size=14))
+def test_parse_note_agrees_with_the_former_pattern_on_short_text(text):
+    # The former regular expression is the specification on short ASCII text (where its
+    # backtracking costs nothing): the linear parser must give the same answer.
+    m = _OLD_NOTE.fullmatch(text)
+    assert parse_note(text) == ((m[1], m[2]) if m else None)
+
+
+def test_a_recorded_note_keeps_an_equals_sign_and_escapes_controls():
+    assert parse_recorded_note("# note: 1.5 mode=a=b") == Note(1.5, "mode", "a=b")
+    assert parse_recorded_note("# note: 1.5 esc=\x1b[2J") == Note(1.5, "esc", "\\x1b[2J")
+    assert parse_recorded_note("# note: nan a=1") is None
+    assert parse_recorded_note("# note: 1 bad name=1") is None
+
+
+def test_format_note_can_never_write_a_second_line():
+    line = format_note(Note(1.0, "gains", "soft\n999999,7,7\n# segment: 5\r\u2028x"))
+    assert "\n" not in line and "\r" not in line and "\u2028" not in line
+    assert parse_recorded_note(line).value == "soft\\x0a999999,7,7\\x0a# segment: 5\\x0d\\u2028x"
+    assert clean_text("plain [bold] text") == "plain [bold] text"
+
+
+def test_a_flood_of_notes_keeps_one_per_name_and_instant():
+    tl = NoteTimeline()
+    for k in range(100_000):
+        tl.add(Note(0.0, "gains", str(k)))
+    assert len(tl) == 1 and tl.active_at(0.0) == (("gains", "99999"),)
+    for k in range(MAX_NOTE_NAMES + 10):
+        tl.add(Note(1.0, f"n{k}", "x"))
+    assert len(tl.active_at(1.0)) == MAX_NOTE_NAMES and tl.dropped == 11

@@ -331,3 +331,24 @@ def test_the_demo_opens_the_ui_and_runs_its_plan(tmp_path):
     assert status == 0 and "Traceback" not in text and "■ stopped" in text
     assert "virtual bench" in text and "gains=soft" in text and "gains=firm" in text
     assert "# counters: " in rec.read_text()
+
+
+def test_markup_in_tags_is_shown_literally_and_never_ends_the_session(tmp_path):
+    # Issue 15: a note value "[/bold]" crashed the UI (rich MarkupError) and "[auto]" vanished.
+    text = FIXTURE.read_text().replace(
+        "# note: 1.999511 gains=A", "# note: 1.999511 gains=[/bold]\n# note: 1.999 m=[auto]")
+    path = tmp_path / "markup.csv"
+    path.write_text(text)
+    watch = Watch(ReplaySource(path, speed=None), make_decoder("auto"), AnalysisSettings(),
+                  source_name="markup.csv", profile=parse_profile(PROFILE))
+    app = LivestepApp(watch, report_folder=tmp_path)
+
+    async def script(pilot) -> None:
+        await until(pilot, lambda: app._rows == 8 and app.link.done)
+        await pilot.press("home")
+        await pilot.pause()
+        assert app.link.snapshot().error is None
+        shown = screen_text(app)
+        assert "gains=[/bold]" in shown and "m=[auto]" in shown
+
+    drive(app, script)
