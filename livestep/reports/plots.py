@@ -27,13 +27,21 @@ _RC = {"svg.fonttype": "none", "svg.hashsalt": "livestep", "font.size": 8.5,
        "axes.grid": True, "grid.color": "0.88", "grid.linewidth": 0.5,
        "legend.fontsize": 7.5, "legend.framealpha": 0.9}
 _STEP_SIZE = (7.2, 3.3)  # inches
-_TREND_SIZE = (3.6, 2.3)
+#: Trends: two side by side in the page's 1100 px, each drawn at about its natural size
+#: (96 px per inch), so its 8.5 pt text is about 11 px high on the screen.
+_TREND_SIZE = (5.4, 2.7)
 # Fixed margins (fractions of the figure): room for 7-character tick labels and the axis
 # labels, and on the right of step plots for the reference-level labels. Measured
 # against matplotlib's constrained layout, which takes three quarters of the drawing time.
 _STEP_MARGINS = dict(left=0.105, right=0.935, bottom=0.135, top=0.915)
-_TREND_MARGINS = dict(left=0.2, right=0.97, bottom=0.175, top=0.89)
+_TREND_MARGINS = dict(left=0.135, right=0.975, bottom=0.15, top=0.9)
+#: Drawing order (matplotlib zorder) of the measured trace and of the fitted model under
+#: it, the model's line width (points) and opacity.
+_TRACE_Z, _MODEL_Z = 3.0, 1.5
+_MODEL_WIDTH, _MODEL_ALPHA = 4.5, 0.35
 #: marker of a trend point by verdict: small circle, triangle, a big cross
+#: Width of a per-step limit mark, points.
+_LIMIT_MARK = 13.0
 _VERDICT_MARKERS = {"pass": ("o", "black", 4.0), "warn": ("^", "tab:orange", 6.5),
                     "fail": ("X", "tab:red", 8.0)}
 
@@ -90,8 +98,9 @@ def step_figure(result: StepResult, *, settling_band: float = 2.0,
         if w.setpoint is not None:
             ax.plot(*_thin(t[shown], w.setpoint[shown]), color="0.45", linestyle=(0, (5, 2)),
                     linewidth=1.3, drawstyle="steps-post", label="setpoint")
+        # The measured trace on top of everything else it shares the plot with.
         ax.plot(*_thin(t[shown], w.feedback[shown]), color="black", linewidth=0.8,
-                label="feedback")
+                label="feedback", zorder=_TRACE_Z)
         amp = m.amplitude
         half = abs(amp) * settling_band / 100.0
         ax.fill_between([0.0, end], m.final - half, m.final + half, color="0.8", alpha=0.6,
@@ -106,7 +115,11 @@ def step_figure(result: StepResult, *, settling_band: float = 2.0,
             f = result.model
             tm = np.linspace(start, end, 600)
             ym = m.initial + f.amplitude * step_response(tm - f.dead_time, f.zeta, f.wn)
-            ax.plot(tm, ym, color="tab:blue", linestyle="-.", linewidth=1.1,
+            # A wide pale band under the trace: where the model fits, the measured trace
+            # runs inside it, and where it does not, the band shows beside the trace;
+            # either way it hides none of the measurement.
+            ax.plot(tm, ym, color="tab:blue", alpha=_MODEL_ALPHA, linewidth=_MODEL_WIDTH,
+                    solid_capstyle="butt", zorder=_MODEL_Z,
                     label=f"model \u03b6={f.zeta:.3g}, \u03c9n={f.wn:.3g} rad/s,"
                     f" dead {1e3 * f.dead_time:.3g} ms")
         if m.rise_start is not None and m.rise_time is not None:
@@ -143,8 +156,9 @@ class TrendPoint:
 
 def trend_figure(points: Sequence[TrendPoint], *, label: str, unit: str) -> Figure:
     """A metric against the step index, each step's marker showing its verdict on this
-    metric, with the low and high limits drawn as lines (stepping where a ``[[when]]``
-    section gives some steps other limits)."""
+    metric, with the low and high limits: a horizontal line when every step has the same
+    one, else (a ``[[when]]`` section gives some steps other limits, or none) a short
+    horizontal mark at each step a limit applies to, never a line joining them."""
     with _style():
         fig = Figure(figsize=_TREND_SIZE)
         fig.subplots_adjust(**_TREND_MARGINS)
@@ -162,12 +176,18 @@ def trend_figure(points: Sequence[TrendPoint], *, label: str, unit: str) -> Figu
         if unjudged:
             ax.plot([p.index for p in unjudged], [p.value for p in unjudged],
                     linestyle="none", marker="o", color="black", markersize=4.0)
-        x = [p.index for p in points]
         for attr, style, name in (("low", "--", "min"), ("high", (0, (6, 2, 1, 2)), "max")):
-            ys = [np.nan if getattr(p, attr) is None else getattr(p, attr) for p in points]
-            if not all(np.isnan(ys)):
-                ax.plot(x, ys, color="black", linestyle=style, linewidth=1.0,
-                        drawstyle="steps-mid", label=name)
+            found = {getattr(p, attr) for p in points}
+            if found == {None}:
+                continue
+            if len(found) == 1:  # one limit for every step: a line across
+                ax.axhline(found.pop(), color="black", linestyle=style, linewidth=1.0,
+                           label=name)
+                continue
+            at = [p for p in points if getattr(p, attr) is not None]
+            ax.plot([p.index for p in at], [getattr(p, attr) for p in at], linestyle="none",
+                    marker="_", markersize=_LIMIT_MARK, markeredgewidth=1.8, color="black",
+                    label=f"{name} (per step)")
         ax.set_xlabel("step")
         # The name as a title, not a y label: long tick labels (0.999991) then still fit.
         ax.set_title(f"{label}, {unit}" if unit else label, loc="left")

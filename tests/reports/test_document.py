@@ -10,6 +10,7 @@ scipy.signal.step with its own damping ratio. Their overshoots are Ogata's close
 
 from __future__ import annotations
 
+import html
 import math
 import re
 import shutil
@@ -147,6 +148,44 @@ class _Page(HTMLParser):
 _VOID = {"meta", "br", "img", "input", "link", "hr"}
 
 
+class _Rows(HTMLParser):
+    """The rows of the first table inside the element with a given id, as cell texts."""
+
+    def __init__(self, within: str) -> None:
+        super().__init__(convert_charrefs=True)
+        self.within, self.depth, self.done = within, 0, False
+        self.rows: list[list[str]] = []
+        self._cell: list[str] | None = None
+
+    def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+        if dict(attrs).get("id") == self.within:
+            self.depth = 1
+        elif self.depth and not self.done:
+            if tag == "tr":
+                self.rows.append([])
+            elif tag in ("td", "th") and self.rows:
+                self._cell = []
+            elif tag == "br" and self._cell is not None:
+                self._cell.append(" ")
+
+    def handle_endtag(self, tag: str) -> None:
+        if self.depth and tag in ("td", "th") and self._cell is not None:
+            self.rows[-1].append(" ".join("".join(self._cell).split()))
+            self._cell = None
+        elif self.depth and tag == "table" and self.rows:
+            self.done = True
+
+    def handle_data(self, data: str) -> None:
+        if self._cell is not None:
+            self._cell.append(data)
+
+
+def _table_rows(text: str, within: str) -> list[list[str]]:
+    parser = _Rows(within)
+    parser.feed(text)
+    return parser.rows
+
+
 def _parse(text: str) -> _Page:
     p = _Page()
     p.feed(text)
@@ -165,9 +204,23 @@ def test_every_step_with_its_verdict_failed_first(made: dict[str, Path]) -> None
     summary = " ".join(page.text["summary"].split())
     assert "4 steps: 2 \u2714 pass, 0 \u25b2 warn, 2 \u2718 fail." in summary
     assert "Failed: step 0, step 2." in summary
-    # statistics per group (livestep.judge.statistics): 8 -> 10 -> 14 -> 11 -> 16
-    for group in ("all steps (4 steps)", "direction up (3 steps)", "direction down (1 step)"):
-        assert group in summary, group
+    # No tags: the overview is by direction (8 -> 10 -> 14 -> 11 -> 16: up, up, down, up),
+    # the mean overshoot of each marked with the worst verdict on it (Ogata's closed form:
+    # up 37.2, 4.6, 0.15 %: a failure among them; down 20.5 %, failed).
+    assert "Overview by direction" in page.text["overview"]
+    head, limits, up, down = _table_rows(made["html"].read_text(), "overview")
+    assert head[:4] == ["group", "steps", "verdicts", "overshoot (%)"]
+    assert limits[:4] == ["limit", "", "", "\u2264 10"]
+    assert up[:3] == ["up", "0, 1, 3", "2 \u2714 pass, 1 \u2718 fail"]
+    assert down[:3] == ["down", "2", "1 \u2718 fail"]
+    mean_up = np.mean([_overshoot(z) for z in (0.3, 0.7, 0.9)])
+    assert up[3].startswith("\u2718 ") and float(up[3][2:]) == pytest.approx(mean_up, abs=0.5)
+    assert down[3].startswith("\u2718 ") and float(down[3][2:]) == pytest.approx(
+        _overshoot(0.45), abs=0.5)
+    # statistics per group (livestep.judge.statistics), in one folded table
+    stats = " ".join(page.text["statistics"].split())
+    for group in ("all steps", "direction up", "direction down"):
+        assert group in stats, group
     # each failed step's table names the overshoot limit it broke
     for i in FAILING:
         assert "above the maximum 10 %" in page.text[f"step-{i}"]
@@ -233,7 +286,7 @@ def test_hostile_text_is_escaped(made: dict[str, Path], tmp_path: Path) -> None:
     assert "script" not in page.tags and "b" not in page.tags
     # the parser gives back the original text exactly: escaped, not mangled
     assert f"{HOSTILE}={HOSTILE}" in page.text["step-0"]
-    assert HOSTILE in page.text["session"] and str(rec) in page.text["session"]
+    assert HOSTILE in page.text["session"] and str(rec) in page.text["file"]
     assert HOSTILE in page.text["profile"]
 
 
@@ -271,27 +324,136 @@ def test_default_output_name_and_bad_input(made: dict[str, Path], tmp_path: Path
     assert "Traceback" not in "".join(err)
 
 
+def test_sections_in_order_and_statistics_folded(made: dict[str, Path]) -> None:
+    text = made["html"].read_text()
+    page = _parse(text)
+    order = ["file", "summary", "overview", "trends", "steps", "statistics", "profile",
+             "session"]
+    assert [i for i in page.ids if i in order] == order
+    stats = text[text.index('<section id="statistics">'):text.index('<section id="profile">')]
+    # one table, inside a <details> element (opened by a click: the page has no script)
+    assert stats.count("<table") == 1 and stats.count("<details>") == 1
+    assert stats.index("<details>") < stats.index("<table") < stats.index("</details>")
+    # Four steps are far fewer than the 30 Cpk and Cp need: each limited row says so.
+    limited = [r for r in _table_rows(text, "statistics") if r[-3:-2] == ["\u2264 10"]]
+    assert len(limited) >= 3  # overshoot: all steps, each direction, the size class
+    assert all(r[-2:] == ["-", "not computed: n < 30"] for r in limited), limited
+
+
+def test_the_file_is_named_once(made: dict[str, Path]) -> None:
+    text = made["html"].read_text()
+    body = text[text.index("<body>"):]
+    assert body.count(html.escape(str(made["recording"]))) == 1
+    assert str(made["recording"]) in _parse(text).text["file"]
+
+
+WHEN_PROFILE = """name = "return moves"
+[limits]
+overshoot_pct = { max = 25, warn = 2 }
+[[when]]
+name = "down"
+direction = "down"
+[when.limits]
+overshoot_pct = { max = 10 }
+"""
+
+
+def test_gain_sets_and_limits_that_change_between_steps(made: dict[str, Path],
+                                                       tmp_path: Path) -> None:
+    reader = RecordingReader(made["recording"])
+    results = list(analyze_chunks(reader, AnalysisSettings(keep_windows=True)))
+    gains = ("A", "A", "B", "B")  # steps 0, 1 under gain set A; 2, 3 under B
+    results = [replace(r, tags=(("gains", g), ("kp", "20"))) for r, g in
+               zip(results, gains, strict=True)]
+    info = read_session_info(made["recording"], metadata={}, samples=reader.stats.good,
+                             first_t=0.0, last_t=7.5)
+    out = write_report(tmp_path / "gains.html", results, info, parse_profile(WHEN_PROFILE))
+    text = out.read_text()
+    page = _parse(text)
+    assert "Overview by gain set (note gains)" in page.text["overview"]
+    head, limits, a, b = _table_rows(text, "overview")
+    # the shared tags of each gain set beside it; the limit starred: [[when]] changes it
+    assert a[:2] == ["gains=A kp=20", "0, 1"] and b[:2] == ["gains=B kp=20", "2, 3"]
+    assert limits[3] == "\u2264 25 *"
+    # Over all steps the limits differ (the down step has its own): the table says why
+    # there is no limit and no Cpk.
+    rows = _table_rows(text, "statistics")
+    every = next(r for r in rows if "overshoot (%)" in r and "all steps" in r)
+    assert every[-3:] == ["per step ([[when]])", "-",
+                          "not computed: limits differ between steps ([[when]])"]
+    up = next(r for r in rows if r[0] == "direction up")
+    assert up[-3:] == ["\u2264 25", "-", "not computed: n < 30"]
+    # the profile's warning margin on a percentage is in percentage points
+    assert "2 pp" in page.text["profile"]
+
+
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+
+
+def _chromium(tmp_path: Path, *args: str) -> subprocess.CompletedProcess[str]:
+    assert CHROMIUM is not None
+    flags = [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
+             "--disable-background-networking", "--disable-component-update", "--disable-sync",
+             "--no-first-run", f"--user-data-dir={tmp_path / 'profile'}"]
+    return subprocess.run([*flags, *args], capture_output=True, text=True, timeout=120,
+                          check=True)
 
 
 @pytest.mark.skipif(CHROMIUM is None, reason="chromium is not installed (Debian: apt-get"
                     " install chromium; .ci/run installs it when it can): the page structure"
                     " is still checked by the html.parser and xml.etree tests above")
 def test_renders_in_a_headless_browser(made: dict[str, Path], tmp_path: Path) -> None:
-    assert CHROMIUM is not None
-    flags = [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu",
-             "--disable-background-networking", "--disable-component-update", "--disable-sync",
-             "--no-first-run", f"--user-data-dir={tmp_path / 'profile'}"]
     url = made["html"].resolve().as_uri()
-    dom = subprocess.run([*flags, "--dump-dom", url], capture_output=True, text=True,
-                         timeout=120, check=True).stdout
+    dom = _chromium(tmp_path, "--dump-dom", url).stdout
     source_svgs = made["html"].read_text().count("<svg")
     assert dom.count("<svg") == source_svgs and dom.count("<article") == 4
     shot = tmp_path / "page.png"
-    subprocess.run([*flags, f"--screenshot={shot}", "--window-size=1100,2400", url],
-                   capture_output=True, timeout=120, check=True)
+    _chromium(tmp_path, f"--screenshot={shot}", "--window-size=1100,2400", url)
     from matplotlib.image import imread
     img = imread(shot)
     assert img.shape[0] == 2400 and img.shape[1] == 1100
     dark = (img[..., :3].mean(axis=2) < 0.5).mean(axis=1)  # dark pixels per row
     assert (dark > 0).mean() > 0.3  # text and plots down the page, not a blank render
+
+
+#: The first screen of a laptop: the summary and the overview must be on it.
+SCREEN = (1280, 800)
+#: Added to a copy of the page (never to the report itself, whose policy forbids any
+#: script): writes where each section's box starts and ends into the DOM, for --dump-dom.
+_MEASURE = """<script>
+for (const s of document.querySelectorAll("header, section")) {
+  const r = s.getBoundingClientRect();
+  s.setAttribute("data-box", r.top + " " + r.bottom + " " + r.right);
+}
+</script>"""
+
+
+@pytest.mark.skipif(CHROMIUM is None, reason="chromium is not installed (Debian: apt-get"
+                    " install chromium; .ci/run installs it when it can)")
+def test_the_summary_and_overview_fill_the_first_screen(made: dict[str, Path],
+                                                        tmp_path: Path) -> None:
+    text = made["html"].read_text()
+    csp = re.search(r'<meta http-equiv="Content-Security-Policy"[^>]*>', text)
+    assert csp is not None
+    probe = tmp_path / "probe.html"
+    probe.write_text(text.replace(csp.group(0), "").replace("</body>", _MEASURE + "</body>"))
+    size = f"--window-size={SCREEN[0]},{SCREEN[1]}"
+    dom = _chromium(tmp_path, size, "--dump-dom", probe.resolve().as_uri()).stdout
+    boxes = {m.group(1) or "header": tuple(map(float, m.group(2).split()))
+             for m in re.finditer(r'<(?:header|section id="(\w+)")[^>]*data-box="([^"]+)"', dom)}
+    assert list(boxes)[:4] == ["header", "summary", "overview", "trends"]
+    for name in ("header", "summary", "overview"):
+        top, bottom, right = boxes[name]
+        assert 0 <= top < bottom <= SCREEN[1] and right <= SCREEN[0], (name, boxes[name])
+    assert boxes["trends"][0] < SCREEN[1]  # and the trends begin on it
+    # The report itself, as a browser shows it under its policy: the verdict badges and
+    # the overview's failed cells (background #fbd5d5) are on the first screen.
+    shot = tmp_path / "first.png"
+    _chromium(tmp_path, size, f"--screenshot={shot}", made["html"].resolve().as_uri())
+    from matplotlib.image import imread
+    img = imread(shot)[..., :3]
+    assert img.shape[:2] == (SCREEN[1], SCREEN[0])
+    pink = np.all(np.abs(img - np.array([0xFB, 0xD5, 0xD5]) / 255) < 0.02, axis=2)
+    rows = np.flatnonzero(pink.any(axis=1))
+    assert rows.size and rows.min() < 250 and rows.max() < SCREEN[1]
+    assert pink[:, :].sum() > 2000  # badges and cells, not a stray pixel

@@ -76,11 +76,56 @@ def test_step_figure_draws_the_response_where_the_closed_form_puts_it(up: StepRe
 
 
 def test_step_figure_lines_differ_by_style_not_only_colour(up: StepResult) -> None:
-    # Legible in black and white: no two curves share line style and marker.
+    # Legible in black and white: no two curves share line style, marker and width (the
+    # model is a band several times wider than the trace it lies under).
     lines = [ln for ln in step_figure(up).axes[0].get_lines() if not
              ln.get_label().startswith("_")]
-    looks = {(str(ln.get_linestyle()), str(ln.get_marker())) for ln in lines}
+    looks = {(str(ln.get_linestyle()), str(ln.get_marker()), round(ln.get_linewidth()))
+             for ln in lines}
     assert len(looks) == len(lines)
+
+
+def _trace_pixels_dark(fig: Figure, result: StepResult) -> float:
+    """The share of the feedback samples in view whose pixel (the darkest of the 3 x 3
+    around it) is near black: the measured trace is visible there, not covered."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    img = np.asarray(canvas.buffer_rgba())[..., :3].astype(float)
+    ax = fig.axes[0]
+    w = result.window
+    t = w.t - result.metrics.t_step
+    lo, hi = ax.get_xlim()
+    pick = np.flatnonzero((t > lo) & (t < hi))[::25]
+    xy = ax.transData.transform(np.column_stack((t[pick], w.feedback[pick])))
+    legend = ax.get_legend().get_window_extent(canvas.get_renderer())
+    xy = np.array([p for p in xy if not legend.contains(*p)])  # the legend box is opaque
+    dark = 0
+    for x, y in xy:
+        col, row = int(round(x)), int(round(img.shape[0] - y))
+        patch = img[row - 1:row + 2, col - 1:col + 2].mean(axis=2)
+        dark += patch.min() < 100  # black over the pale model band: about 60-75
+    return dark / len(xy)
+
+
+def test_the_model_does_not_hide_the_measured_trace(up: StepResult,
+                                                    monkeypatch: pytest.MonkeyPatch) -> None:
+    from livestep.reports import plots
+
+    fig = step_figure(up)
+    model, trace = _line(fig, "model"), _line(fig, "feedback")
+    # Drawn under the trace, wider and pale.
+    assert model.get_zorder() < trace.get_zorder()
+    assert model.get_linewidth() >= 4 * trace.get_linewidth() and model.get_alpha() < 0.5
+    # Read back from the rendered pixels: the black trace shows along its whole length,
+    # although the model (a good fit) lies right under it.
+    assert _trace_pixels_dark(fig, up) > 0.95
+    # The check can fail: an opaque model drawn over the trace hides it.
+    monkeypatch.setattr(plots, "_MODEL_Z", 5.0)
+    monkeypatch.setattr(plots, "_MODEL_ALPHA", 1.0)
+    monkeypatch.setattr(plots, "_MODEL_WIDTH", 1.1)
+    assert _trace_pixels_dark(step_figure(up), up) < 0.5
 
 
 def test_down_step_peak_marker_points_the_other_way() -> None:
@@ -120,16 +165,30 @@ def test_trend_figure_limits_and_verdict_markers() -> None:
               TrendPoint(3, 2.0, "pass", None, 5.0), TrendPoint(4, 1.0, None)]
     fig = trend_figure(points, label="overshoot", unit="%")
     ax = fig.axes[0]
+    # A limit that changes between steps ([[when]]): a mark at each step it applies to,
+    # nothing joining them (no square wave), none where no limit applies (step 4).
     high = _line(fig, "max")
-    assert high.get_drawstyle() == "steps-mid"
-    y = np.asarray(high.get_ydata(), dtype=float)
-    assert np.array_equal(y[:4], [10.0, 10.0, 10.0, 5.0]) and np.isnan(y[4])
-    assert not [ln for ln in ax.get_lines() if ln.get_label() == "min"]
+    assert high.get_label() == "max (per step)"
+    assert high.get_linestyle() == "None" and high.get_marker() == "_"
+    assert list(high.get_xdata()) == [0, 1, 2, 3]
+    assert list(high.get_ydata()) == [10.0, 10.0, 10.0, 5.0]
+    assert not [ln for ln in ax.get_lines() if ln.get_drawstyle().startswith("steps")]
+    assert not [ln for ln in ax.get_lines() if ln.get_label().startswith("min")]
     fail = _line(fig, "fail")
     assert fail.get_marker() == "X" and list(fail.get_xdata()) == [0]
     assert list(_line(fig, "warn").get_xdata()) == [1]
     assert list(_line(fig, "pass").get_xdata()) == [3]
     assert ax.get_title(loc="left") == "overshoot, %"
+
+
+def test_trend_figure_one_limit_for_every_step_is_a_line() -> None:
+    points = [TrendPoint(k, 1.0 + k, "pass", 0.5, 10.0) for k in range(4)]
+    fig = trend_figure(points, label="overshoot", unit="%")
+    for name, y in (("max", 10.0), ("min", 0.5)):
+        line = _line(fig, name)
+        assert line.get_label() == name and list(line.get_ydata()) == [y, y]
+        assert line.get_linestyle() in ("--", "-.") and line.get_marker() == "None"
+    assert fig.get_size_inches()[0] >= 5.0  # two to a row in the page, about natural size
 
 
 def test_thin_keeps_the_envelope_of_a_long_trace() -> None:
