@@ -480,5 +480,5 @@ def run_app(watch: Watch) -> int:
         from livestep.live.run import exit_status
 
         print(f"livestep: error: {snap.error}")
-        return exit_status(snap.error)
+        return exit_status(snap.error, snap.error_status)
     return EXIT_OK if status is None else status
