@@ -54,10 +54,12 @@ def run_demo_command(args: argparse.Namespace) -> int:
     if not args.no_record:
         record = Path(args.record or time.strftime("livestep-demo-%Y%m%d-%H%M%S.csv"))
     if not (args.console or args.json_lines) and sys.stdout.isatty():
+        from livestep.sinks.terminal import textual_color
         from livestep.tui.app import run_demo_app
 
-        return run_demo_app(quick=args.quick, record=record, fmt=args.format, seed=args.seed,
-                            profile=profile, settings=settings)
+        with textual_color():  # --color and NO_COLOR, as textual reads them
+            return run_demo_app(quick=args.quick, record=record, fmt=args.format,
+                                seed=args.seed, profile=profile, settings=settings)
     return run_demo(quick=args.quick, record=record, fmt=args.format, seed=args.seed,
                     json_lines=args.json_lines, profile=profile, settings=settings)
 

@@ -186,9 +186,11 @@ def run_watch(args: argparse.Namespace) -> int:
                   duration=args.duration, max_steps=args.steps)
     if args.headless:
         return run_headless(watch, sys.stdout)
+    from livestep.sinks.terminal import textual_color
     from livestep.tui.app import run_app
 
-    return run_app(watch)
+    with textual_color():  # --color and NO_COLOR, as textual reads them
+        return run_app(watch)
 
 
 def run_ports(args: argparse.Namespace) -> int:

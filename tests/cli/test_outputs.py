@@ -172,6 +172,49 @@ def test_every_command_takes_color_and_one_profile_metavar() -> None:
         assert "--profile FILE" not in command.format_help(), name
 
 
+def test_consoles_off_a_terminal(capsys, monkeypatch) -> None:
+    from rich.table import Table
+
+    from livestep.sinks.terminal import make_console, set_color_mode
+
+    monkeypatch.setenv("COLUMNS", "40")  # a pipe's width is not the terminal's
+    monkeypatch.setenv("FORCE_COLOR", "1")  # nor does this make a pipe a terminal
+    long = " ".join(f"word{k}" for k in range(60))
+    console = make_console()
+    console.print(f"[bold red]{long}[/]")
+    table = Table("a", "b")
+    table.add_row(long, "x")
+    console.print(table)
+    out = capsys.readouterr().out
+    assert ESC not in out and long in out.splitlines()[0]
+    assert any(long in ln and ln.rstrip().endswith("x │") for ln in out.splitlines())
+    try:
+        set_color_mode("always")
+        make_console(stderr=True).print("[red]red[/]")
+        assert ESC + "31m" in capsys.readouterr().err
+    finally:
+        set_color_mode("auto")
+
+
+def test_the_terminal_ui_hears_the_color_option(monkeypatch) -> None:
+    from textual.app import App
+
+    from livestep.sinks.terminal import textual_color
+
+    # textual turns monochrome when NO_COLOR is present at all (App.no_color); livestep
+    # follows no-color.org, where an empty value does not count, and --color decides.
+    cases = [("never", None, True), ("always", "1", False), ("auto", "", False),
+             ("auto", "1", True), ("auto", None, False)]
+    for mode, env, mono in cases:
+        if env is None:
+            monkeypatch.delenv("NO_COLOR", raising=False)
+        else:
+            monkeypatch.setenv("NO_COLOR", env)
+        with textual_color(mode):
+            assert App().no_color is mono, (mode, env)
+        assert os.environ.get("NO_COLOR") == env  # restored
+
+
 def test_bad_color_value_is_one_line(capsys) -> None:
     assert main(["analyze", str(BELT), "--color", "sometimes"]) == 2
     err = capsys.readouterr().err
