@@ -343,7 +343,8 @@ def render_comparison(cmp: Comparison, console: Console) -> None:
     """One row per quantity: mean A, mean B, the change and whether it is better."""
     table = _compact_table(escape(f"A: {cmp.a_label} ({cmp.a_steps} steps)  vs  B:"
                                   f" {cmp.b_label} ({cmp.b_steps} steps)"),
-                           f"{_UNIT_CAPTION}; change = B - A; p: Welch's t-test of the two"
+                           f"{_UNIT_CAPTION}; change = B - A (of a quantity in %: percentage"
+                           " points); p: Welch's t-test of the two"
                            " means; ~ better? / ~ worse?: p >= 0.05, the change may be"
                            " step-to-step scatter")
     table.add_column("quantity", no_wrap=True, min_width=22)

@@ -140,6 +140,8 @@ def test_other_tables_piped(argv: list[str]) -> None:
     assert proc.returncode == 0, proc.stderr
     assert ESC not in proc.stdout and ESC not in proc.stderr
     assert max(len(ln) for ln in proc.stdout.splitlines()) > 100  # a caption, whole
+    if argv[0] == "compare":  # a change of a percentage is in percentage points
+        assert "change = B - A (of a quantity in %: percentage points)" in proc.stdout
 
 
 def test_color_option_and_no_color(tmp_path: Path) -> None:
