@@ -106,7 +106,8 @@ class StepAnalyzer:
     def __init__(self, settings: AnalysisSettings = AnalysisSettings(),
                  *, has_setpoint: bool = True) -> None:
         self.settings = settings
-        self.detector = StepDetector(settings.detect, has_setpoint=has_setpoint)
+        self.detector = StepDetector(settings.detect, has_setpoint=has_setpoint,
+                                     measure=settings.measure)
 
     def feed(self, chunk: SampleChunk) -> list[StepResult]:
         """Results of the steps whose windows this chunk closed."""
@@ -132,7 +133,8 @@ def analyze_chunks(chunks: Iterable[SampleChunk], settings: AnalysisSettings = A
             yield from analyzer.feed(chunk)
         yield from analyzer.finish()
         return
-    detector = StepDetector(settings.detect, has_setpoint=has_setpoint)
+    detector = StepDetector(settings.detect, has_setpoint=has_setpoint,
+                            measure=settings.measure)
     with mp.get_context("fork").Pool(workers) as pool:  # forked now, before any reading
         pending: deque[AsyncResult[StepResult]] = deque()
 

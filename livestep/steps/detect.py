@@ -14,6 +14,20 @@ it lasts at most ``max_transition`` samples, is followed by at least
 ``min_step``; a longer transition is a ramp: it ends the open window and opens
 none. The step instant is the first sample carrying the new setpoint value.
 
+A window closes at the next step, a ramp, ``max_window`` or the end of data, or as soon
+as its response has settled (``close_when_settled``): at checkpoints 2 ``hold_samples``
+after the step instant and then every 25 % more samples, the window so far is measured
+(:func:`~livestep.steps.measure.measure_step`); it closes there, with the reason
+``settled``, once the response is settled by the measurement's own rule, has stayed in the
+band for twice its settling time since (the confirmation time: by then what is left of a
+second-order transient is a small fraction of the band, so the final level read from the
+window's tail is not biased by it) and does not creep there (a line fitted to that stretch
+moves by at most a quarter of the band: an integrator still pulling the error out keeps
+the window open). A loop that settles in 0.2 s is closed between 0.6 and 0.75 s after the
+step. The checkpoints are
+counted in samples and a checkpoint is only judged once no setpoint change can come
+before it, so the decision does not depend on chunk sizes either.
+
 Feedback mode (no setpoint column): a step starts at the first sample that
 leaves the noise band (8 sigma) around the held feedback level and stays away
 (the median of the next ``hold_samples`` is outside the band too); the
@@ -31,7 +45,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from livestep.steps.measure import noise_sigma, robust_level
+from livestep.steps.measure import MeasureSettings, measure_step, noise_sigma, robust_level
 
 __all__ = ["DetectorSettings", "StepDetector", "StepWindow"]
 
@@ -51,6 +65,8 @@ class DetectorSettings:
     ``max_window``: longest step window, seconds. ``pre_samples``: at most this many
     samples before the step are used for the initial level and noise.
     ``setpoint_tolerance``: setpoint differences up to this (setpoint units) are steady.
+    ``close_when_settled``: close a window once its response has settled (see the module
+    docstring) rather than only at the next step.
     """
 
     min_step: float | None = None
@@ -59,6 +75,7 @@ class DetectorSettings:
     max_window: float = 120.0
     pre_samples: int = 2000
     setpoint_tolerance: float = 0.0
+    close_when_settled: bool = True
 
 
 @dataclass(frozen=True, kw_only=True, eq=False)
@@ -124,6 +141,8 @@ class _Open:
     pre_start: int
     sp_before: float | None
     sp_after: float | None
+    next_check: int = 0  # samples after i_step of the next settled check
+    level: tuple[float, float] | None = None  # initial level and noise sigma, once known
 
 
 class StepDetector:
@@ -133,8 +152,10 @@ class StepDetector:
     """
 
     def __init__(self, settings: DetectorSettings = DetectorSettings(),
-                 *, has_setpoint: bool = True) -> None:
+                 *, has_setpoint: bool = True,
+                 measure: MeasureSettings | None = None) -> None:
         self.settings = settings
+        self.measure = measure if measure is not None else MeasureSettings()
         self.has_setpoint = has_setpoint
         self._buf = _Columns(3)
         self._scan = 1 if has_setpoint else 0
@@ -161,7 +182,9 @@ class StepDetector:
             self._scan_setpoint(out)
         else:
             self._scan_feedback(out)
-        self._check_max_window(out, self._buf.end)
+        # Only up to where no setpoint change (or feedback jump) can still be found: the
+        # scan position, so a checkpoint is judged with the same samples whatever the chunks.
+        self._check_limits(out, self._scan)
         self._trim()
         return out
 
@@ -169,7 +192,7 @@ class StepDetector:
         """Close the open window at the end of the stream (or segment: ``reason``)."""
         out: list[StepWindow] = []
         if self._open is not None:
-            self._check_max_window(out, self._buf.end)
+            self._check_limits(out, self._buf.end)
         if self._open is not None:
             self._close(self._buf.end, reason, out)
         return out
@@ -196,7 +219,7 @@ class StepDetector:
             length = last - a + 1
             if self._in_ramp or length > s.max_transition:
                 # A ramp: ends the open window as soon as it is known to be one.
-                self._check_max_window(out, a)
+                self._check_limits(out, a)
                 if self._open is not None:
                     self._close(a, "ramp", out)
                 self._in_ramp = not complete
@@ -220,10 +243,10 @@ class StepDetector:
                 continue
             tol = s.setpoint_tolerance + 1e-9 * abs(after)
             i_step = a - 1 + int(np.argmax(np.abs(sp - after) <= tol))
-            self._check_max_window(out, a)
+            self._check_limits(out, a)
             if self._open is not None:
                 self._close(a, "next step", out)
-            self._open = _Open(i_step, pre_start, before, after)
+            self._open = _Open(i_step, pre_start, before, after, 2 * s.hold_samples)
             self._hold_start = last + 1
 
     # -- feedback mode ----------------------------------------------------------
@@ -249,11 +272,11 @@ class StepDetector:
                 return
             i = self._scan + int(k)
             jump = float(np.median(confirm)) - self._level
-            self._check_max_window(out, i)
+            self._check_limits(out, i)
             if self._open is not None:
                 self._close(i, "next step", out)
             if s.min_step is None or abs(jump) >= s.min_step:
-                self._open = _Open(i, self._pre_start(i), None, None)
+                self._open = _Open(i, self._pre_start(i), None, None, 2 * h)
             self._level = None
             self._moved_at = i
             self._scan = i + h
@@ -299,18 +322,67 @@ class StepDetector:
         return max(self._hold_start + (change - self._hold_start) // 2,
                    change - self.settings.pre_samples)
 
-    def _check_max_window(self, out: list[StepWindow], upto: int) -> None:
+    def _check_limits(self, out: list[StepWindow], upto: int) -> None:
+        """Close the open window at its first settled checkpoint or where it passes
+        ``max_window``, whichever comes first, judging only samples before ``upto``."""
         op = self._open
-        if op is None:
+        if op is None or upto <= op.i_step:
             return
         t_step = float(self._buf.col(0, op.i_step, op.i_step + 1)[0])
-        start = op.i_step
-        if upto <= start:
-            return
-        t = self._buf.col(0, start, upto)
+        t = self._buf.col(0, op.i_step, upto)
         over = np.flatnonzero(t - t_step > self.settings.max_window)
-        if over.size:
-            self._close(start + int(over[0]), "longest window", out)
+        limit = op.i_step + int(over[0]) if over.size else None
+        if self.settings.close_when_settled:
+            while op.i_step + op.next_check <= (upto if limit is None else limit):
+                stop = op.i_step + op.next_check
+                op.next_check = max(op.next_check + 1, -(-op.next_check * 5 // 4))
+                if self._settled(op, stop):
+                    self._close(stop, "settled", out)
+                    return
+        if limit is not None:
+            self._close(limit, "longest window", out)
+
+    def _settled(self, op: _Open, stop: int) -> bool:
+        """Whether the response of the open step, samples up to ``stop``, has settled and
+        stayed in the band for half its settling time since. A cheap look at the last
+        quarter of the window first: it must have moved and be flat within the band."""
+        b = self._buf
+        t = b.col(0, op.pre_start, stop)
+        fb = b.col(1, op.pre_start, stop)
+        i = op.i_step - op.pre_start
+        if i < 3:
+            return False
+        if op.level is None:
+            op.level = (robust_level(fb[:i]), noise_sigma(fb[:i]))
+        initial, sigma = op.level
+        tail = fb[stop - op.pre_start - max(self.settings.hold_samples, (stop - op.i_step) // 4):]
+        amp = float(np.mean(tail)) - initial
+        band = self.measure.settling_band / 100.0
+        if abs(amp) < 5.0 * sigma or float(np.ptp(tail)) > 2.0 * band * abs(amp) + 8.0 * sigma:
+            return False
+        if op.sp_before is not None and op.sp_after is not None and op.sp_after != op.sp_before:
+            # Not before the loop has clearly answered the setpoint change (inside a dead
+            # time a slow drift can look settled); a loop that ends far from its setpoint
+            # keeps its window to the next step.
+            if amp / (op.sp_after - op.sp_before) < 0.5:
+                return False
+        try:
+            m = measure_step(t, fb, i, setpoint=b.col(2, op.pre_start, stop)
+                             if self.has_setpoint else None, setpoint_before=op.sp_before,
+                             setpoint_after=op.sp_after, settings=self.measure)
+        except Exception:  # noqa: BLE001 - a bug there must not end the stream: not settled
+            return False
+        if not m.settled or m.settling_time is None or m.rise_time is None:
+            return False
+        since = m.t_step + m.settling_time
+        if float(t[-1]) - since < 2.0 * m.settling_time:
+            return False
+        # Not creeping either (an integrator still pulling the error out inside the band):
+        # a line fitted to the confirmation stretch moves by at most a quarter of the band.
+        sel = t >= since
+        tt = t[sel] - since
+        slope = float(np.polyfit(tt, fb[sel], 1)[0]) if tt.size >= 3 else 0.0
+        return abs(slope) * float(tt[-1]) <= 0.25 * band * abs(m.amplitude)
 
     def _close(self, stop: int, reason: str, out: list[StepWindow]) -> None:
         op = self._open

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from _signals import reference
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import signal
@@ -46,12 +47,16 @@ def run(det: StepDetector, t, fb, sp, sizes=None):
 def test_finds_every_step_at_the_first_sample_with_the_new_setpoint():
     t, sp = staircase([0.0, 1.0, 3.0, -2.0, -2.5, 10.0])
     fb = simulate(sp, t, noise=0.002)
+    held = run(StepDetector(DetectorSettings(close_when_settled=False)), t, fb, sp)
+    assert [w.end_reason for w in held] == ["next step"] * 4 + ["end of data"]
     wins = run(StepDetector(), t, fb, sp)
     # By construction the setpoint changes at samples 1000, 2000, ... (t = 1, 2, ... s).
     assert [w.t_step for w in wins] == pytest.approx([1.0, 2.0, 3.0, 4.0, 5.0])
     assert [(w.setpoint_before, w.setpoint_after) for w in wins] == [
         (0.0, 1.0), (1.0, 3.0), (3.0, -2.0), (-2.0, -2.5), (-2.5, 10.0)]
-    assert [w.end_reason for w in wins] == ["next step"] * 4 + ["end of data"]
+    assert [w.end_reason for w in wins] == ["settled"] * 5
+    for w, h in zip(wins, held, strict=True):  # the same samples, up to the settled close
+        assert np.array_equal(w.t, h.t[:w.t.size]) and w.t.size < h.t.size
     for w in wins:
         assert np.all(w.setpoint[w.i_step:] == w.setpoint_after)
         assert np.all(w.setpoint[:w.i_step] == w.setpoint_before)
@@ -64,7 +69,7 @@ def test_ramp_is_not_a_step_and_ends_the_window():
     sp[3000:4000] = np.linspace(1.0, 2.0, 1000)  # a one-second ramp
     sp[4000:] = 2.0
     fb = simulate(sp, t, noise=0.001)
-    wins = run(StepDetector(), t, fb, sp)
+    wins = run(StepDetector(DetectorSettings(close_when_settled=False)), t, fb, sp)
     assert len(wins) == 1
     assert wins[0].t_step == pytest.approx(1.0)
     assert wins[0].end_reason == "ramp"
@@ -105,9 +110,25 @@ def test_no_steps_from_noise_on_a_steady_setpoint():
 
 def test_longest_window_cuts_a_long_hold():
     t, sp = staircase([0.0, 1.0], hold=5.0)
-    wins = run(StepDetector(DetectorSettings(max_window=2.0)), t, simulate(sp, t), sp)
+    wins = run(StepDetector(DetectorSettings(max_window=2.0, close_when_settled=False)), t,
+               simulate(sp, t), sp)
     assert len(wins) == 1 and wins[0].end_reason == "longest window"
     assert wins[0].t[-1] - wins[0].t_step == pytest.approx(2.0, abs=2 / RATE)
+
+
+@pytest.mark.parametrize("noise", [0.0, 0.005])
+def test_a_held_step_closes_soon_after_it_settles(noise):
+    # A loop that settles in about 0.2 s (zeta 0.5, wn 40 rad/s), stepped and held 12 s.
+    # Its exact 2 % settling time is the last band exit of Ogata's closed form (reference()).
+    t, sp = staircase([0.0, 1.0], hold=12.0)
+    wins = run(StepDetector(), t, simulate(sp, t, noise=noise), sp)
+    ts = reference(ZETA, WN).settling
+    assert len(wins) == 1 and wins[0].end_reason == "settled"
+    held = wins[0].t[-1] - wins[0].t_step
+    # confirmed: in the band for twice the settling time again, then the next checkpoint
+    # (+25 %); the noise moves the measured settling time by a few per cent
+    assert 0.95 * 3.0 * ts <= held <= 1.25 * (3.0 * ts + 0.04) + 0.05
+    assert held < 1.5  # well within 1.5 s of the setpoint change
 
 
 def test_memory_stays_bounded_on_a_long_stream_without_steps():
