@@ -23,6 +23,7 @@ from livestep.steps.model_fit import (
     closed_form_estimate,
     fit_second_order,
 )
+from livestep.steps.progress import StepProgress, step_progress
 from livestep.steps.samples import SampleChunk
 
 __all__ = ["AnalysisSettings", "StepAnalyzer", "StepResult", "analyze_chunks", "analyze_window"]
@@ -113,6 +114,12 @@ class StepAnalyzer:
         """Results of the steps whose windows this chunk closed."""
         windows = self.detector.feed(chunk.t, chunk.feedback, chunk.setpoint)
         return [analyze_window(w, self.settings) for w in windows]
+
+    def progress(self) -> StepProgress | None:
+        """What is known of the step under way (``None`` when none is): its instant and
+        size, then its rise time, peak and overshoot as the samples show them."""
+        w = self.detector.open_window()
+        return None if w is None else step_progress(w, self.settings.measure)
 
     def finish(self, reason: str = "end of data") -> list[StepResult]:
         """Results of the step still open at the end of the stream (or segment)."""

@@ -197,6 +197,20 @@ class StepDetector:
             self._close(self._buf.end, reason, out)
         return out
 
+    def open_window(self) -> StepWindow | None:
+        """The step under way (its samples so far, copied; ``end_reason`` "open"), or
+        ``None`` when no window is open."""
+        op = self._open
+        if op is None or self._buf.end - op.i_step < 2:
+            return None
+        b, stop = self._buf, self._buf.end
+        return StepWindow(
+            index=self._count, t=b.col(0, op.pre_start, stop).copy(),
+            feedback=b.col(1, op.pre_start, stop).copy(),
+            setpoint=b.col(2, op.pre_start, stop).copy() if self.has_setpoint else None,
+            i_step=op.i_step - op.pre_start, setpoint_before=op.sp_before,
+            setpoint_after=op.sp_after, end_reason="open")
+
     # -- setpoint mode ----------------------------------------------------------
     def _moving(self, start: int, stop: int) -> NDArray[np.intp]:
         sp = self._buf.col(2, start - 1, stop)
