@@ -30,7 +30,7 @@ def parse_block(block: bytes, nlines: int, ncol: int) -> np.ndarray | None:
     if nlines == 0 or block.count(b",") != nlines * (ncol - 1) or b"\n\n" in block:
         return None
     data = _plain_decimals(block, nlines, ncol)
-    if data is not None or not _rows_aligned(block, ncol):
+    if data is not None or not _rows_aligned(block, ncol) or _blank_cell(block):
         return data
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", DeprecationWarning)
@@ -39,6 +39,13 @@ def parse_block(block: bytes, nlines: int, ncol: int) -> np.ndarray | None:
         except ValueError:  # a cell that is not a number
             return None
     return flat.reshape(nlines, ncol) if flat.size == nlines * ncol else None
+
+
+def _blank_cell(block: bytes) -> bool:
+    """Whether a cell is empty or only spaces (numpy's text parser would read such a cell
+    as -1 instead of refusing it)."""
+    b = block.translate(None, b" \t")
+    return b[:1] in (b",", b"\n") or b",," in b or b",\n" in b or b"\n," in b
 
 
 _PLAIN_BYTES = b"0123456789.-,\n"
