@@ -44,7 +44,7 @@ def parse_block(block: bytes, nlines: int, ncol: int) -> np.ndarray | None:
 def _blank_cell(block: bytes) -> bool:
     """Whether a cell is empty or only spaces (numpy's text parser would read such a cell
     as -1 instead of refusing it)."""
-    b = block.translate(None, b" \t")
+    b = block.translate(None, b" \t\x0b\x0c\r")  # whitespace bytes.strip() removes
     return b[:1] in (b",", b"\n") or b",," in b or b",\n" in b or b"\n," in b
 
 

@@ -112,7 +112,7 @@ def test_reader_gives_the_same_with_and_without_the_fast_path(text):
 def test_a_blank_cell_is_refused_not_read_as_minus_one():
     # Python's float() refuses an empty or blank cell; numpy's text parser read it as -1.0
     # (found by the split fuzzer: "9000,\t,0.160" gave a setpoint of -1 in one read split).
-    for cell in ("", " ", "\t", " \t "):
+    for cell in ("", " ", "\t", " \t ", "\x0b", "\x0c"):
         with pytest.raises(ValueError):
             float(cell)
         assert numparse.parse_block(f"1,{cell},2\n3,4,5\n".encode(), 2, 3) is None
