@@ -43,7 +43,9 @@ class PortSettings:
     """``url``: device path or pyserial URL; ``baudrate`` in bit/s (ignored by USB CDC
     devices); ``parity`` N, E or O; ``exclusive``: lock the port against other programs;
     ``dtr``/``rts``: drive those lines on open (``None`` leaves pyserial's default; some
-    boards reset when DTR changes); ``read_timeout`` in seconds."""
+    boards reset when DTR changes); ``read_timeout`` in seconds; ``write_timeout``: seconds a
+    write may wait for a device that does not read (flow control, a hung board) before it
+    fails, so a session can always end."""
 
     url: str
     baudrate: int = 115200
@@ -52,6 +54,7 @@ class PortSettings:
     dtr: bool | None = None
     rts: bool | None = None
     read_timeout: float = 0.1
+    write_timeout: float = 2.0
 
 
 def stable_path(device: str, by_id: Path = BY_ID) -> str:
@@ -72,7 +75,8 @@ def open_port(s: PortSettings) -> serial.SerialBase:
         raise InputError(f"unknown parity {s.parity!r}; use N, E or O")
     try:
         port = serial.serial_for_url(s.url, do_not_open=True, baudrate=s.baudrate,
-                                     parity=PARITIES[s.parity], timeout=s.read_timeout)
+                                     parity=PARITIES[s.parity], timeout=s.read_timeout,
+                                     write_timeout=s.write_timeout)
         if "://" not in s.url:
             port.exclusive = s.exclusive
         if s.dtr is not None:
@@ -192,7 +196,8 @@ class SerialReader:
                     self._port = open_port(PortSettings(
                         url=path, baudrate=self.settings.baudrate, parity=self.settings.parity,
                         exclusive=self.settings.exclusive, dtr=self.settings.dtr,
-                        rts=self.settings.rts, read_timeout=self.settings.read_timeout))
+                        rts=self.settings.rts, read_timeout=self.settings.read_timeout,
+                        write_timeout=self.settings.write_timeout))
                 except InputError:
                     continue
                 self.reconnects += 1

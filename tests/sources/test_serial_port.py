@@ -168,3 +168,19 @@ def test_stable_path_prefers_by_id_links(tmp_path, pty_pair):
 def test_port_listing_runs():
     ports = list_serial_ports(Path("/nonexistent"))
     assert all(p.device and p.stable == p.device for p in ports)
+
+
+def test_a_write_to_a_device_that_never_reads_fails_instead_of_hanging(pty_pair):
+    # A pty holds a few KB and then blocks its writer: a board that stopped reading. The
+    # write must give up (pyserial's SerialTimeoutException, a SerialException the plan
+    # runner takes for a lost link) so the session can end and say so.
+    import serial
+
+    reader = SerialReader(PortSettings(url=pty_pair.path, write_timeout=0.2))
+    reader.start()
+    try:
+        with pytest.raises(serial.SerialTimeoutException):
+            for _ in range(1000):
+                reader.write(b"x" * 4096)
+    finally:
+        reader.stop()
