@@ -61,6 +61,9 @@ def add_parsers(sub: argparse._SubParsersAction) -> None:
                    " anything else is a serial port path or pyserial URL")
     w.add_argument("--headless", action="store_true",
                    help="no UI: one JSON line per finished step on stdout, then a summary")
+    w.add_argument("--progress", action="store_true",
+                   help="with --headless: also a {\"progress\": ...} line whenever more is"
+                   " known of the step under way (instant, rise, peak, settling)")
     w.add_argument("--profile", metavar="TOML", help="tolerance profile: a verdict per step")
     w.add_argument("--duration", type=positive, metavar="S", help="stop after S seconds")
     w.add_argument("--steps", type=int, metavar="N", help="stop after N steps")
@@ -185,7 +188,7 @@ def run_watch(args: argparse.Namespace) -> int:
                   metadata=metadata_for(args.source, decoder), profile=profile,
                   duration=args.duration, max_steps=args.steps)
     if args.headless:
-        return run_headless(watch, sys.stdout)
+        return run_headless(watch, sys.stdout, progress=args.progress)
     from livestep.sinks.terminal import textual_color
     from livestep.tui.app import run_app
 

@@ -9,6 +9,7 @@ process exits.
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import json
 import signal
 import sys
@@ -31,6 +32,7 @@ from livestep.sinks.terminal import make_console
 from livestep.sources.files import open_file
 from livestep.sources.serial_port import PortSettings, SerialReader
 from livestep.steps.analysis import AnalysisSettings
+from livestep.steps.progress import StepProgress
 
 __all__ = ["Driver", "describe_decoder", "metadata_for", "run_headless", "run_live", "run_replay",
            "run_until_done", "stop_on_sigterm"]
@@ -163,9 +165,11 @@ def run_live(port: PortSettings, decoder: Decoder, settings: AnalysisSettings, *
     return status
 
 
-def run_headless(watch: Watch, out: IO[str]) -> int:
+def run_headless(watch: Watch, out: IO[str], *, progress: bool = False) -> int:
     """``watch --headless``: one JSON line per finished step on ``out`` as soon as it is
-    measured, then one ``{"summary": ...}`` line. Exit status as for ``analyze --profile``:
+    measured, then one ``{"summary": ...}`` line; with ``progress``, also a
+    ``{"progress": {...}}`` line (the fields of :class:`StepProgress`) whenever more is
+    known of the step under way. Exit status as for ``analyze --profile``:
     1 when a step failed its profile (or none was found to judge) or on an internal error,
     2 on bad input, else 0."""
 
@@ -173,7 +177,13 @@ def run_headless(watch: Watch, out: IO[str]) -> int:
         out.write(json.dumps(step_line_record(entry), allow_nan=False) + "\n")
         out.flush()
 
+    def on_progress(p: StepProgress) -> None:
+        out.write(json.dumps({"progress": dataclasses.asdict(p)}, allow_nan=False) + "\n")
+        out.flush()
+
     watch.on_step = on_step
+    if progress:
+        watch.on_progress = on_progress
     watch.session.sinks.insert(0, _Announce(watch, make_console(stderr=True, highlight=False)))
     run_until_done(watch)
     snap = watch.snapshot()

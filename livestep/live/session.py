@@ -25,6 +25,7 @@ from livestep.judge.verdict import StepVerdict, judge
 from livestep.sinks.base import Sink
 from livestep.sources.files import READ_ERRORS, open_file, read_error
 from livestep.steps.analysis import AnalysisSettings, StepAnalyzer, StepResult
+from livestep.steps.progress import StepProgress
 from livestep.steps.samples import SampleChunk
 from livestep.steps.tags import (
     MAX_NOTE_NAMES,
@@ -138,6 +139,11 @@ class Session:
         for s in self.sinks:
             s.on_note(note)
         return note
+
+    def progress(self) -> StepProgress | None:
+        """What is known of the step under way, if one is (see
+        :mod:`livestep.steps.progress`)."""
+        return None if self._analyzer is None else self._analyzer.progress()
 
     def state(self, state: str) -> None:
         """A link state change: ``connected`` means a port was (re)opened, so the decoder

@@ -37,6 +37,7 @@ from livestep.sinks.base import Sink
 from livestep.sinks.recorder import Recorder
 from livestep.sources.replay import ReplaySource
 from livestep.steps.analysis import AnalysisSettings, StepResult
+from livestep.steps.progress import StepProgress
 from livestep.steps.samples import SampleChunk
 from livestep.steps.tags import Note
 
@@ -126,6 +127,7 @@ class Snapshot:
     said: str = ""  # the latest line of the driver (a plan runner), for the display
     error_status: int = EXIT_OK  # the exit status the error calls for (0 without one)
     stream_format: str | None = None  # what the decoder decided about the stream
+    under_way: StepProgress | None = None  # the step under way, once its instant is known
 
 
 class _Ring:
@@ -217,8 +219,9 @@ class Watch:
     seconds, ``max_steps`` steps) ends it; :meth:`wait` joins it.
 
     ``on_step(entry)`` is called on the analysis thread for every finished step, after
-    the results log has it (headless output). ``profile``: a tolerance profile whose
-    verdict every step gets, or ``None``."""
+    the results log has it (headless output); ``on_progress(progress)`` whenever what is
+    known of the step under way changes (its phase or a figure), at most 10 times a
+    second. ``profile``: a tolerance profile whose verdict every step gets, or ``None``."""
 
     def __init__(self, source: Source, decoder: Decoder, settings: AnalysisSettings, *,
                  source_name: str, record: Path | None = None, raw: Path | None = None,
@@ -233,6 +236,9 @@ class Watch:
         self.replay = isinstance(source, ReplaySource)
         self.profile = profile
         self.on_step = on_step
+        self.on_progress: Callable[[StepProgress], None] | None = None
+        self._under_way: StepProgress | None = None
+        self._progress_at = 0.0
         self.duration = duration
         self.driver = driver
         self.reason = "stopped"  # why the session ended: done, stopped, interrupted, error
@@ -342,7 +348,8 @@ class Watch:
                 speed=getattr(self.source, "speed", None),
                 profile=getattr(self.profile, "name", None), version=self._version,
                 done=self._done.is_set(), error=self._error, said=self._said,
-                error_status=self._error_status, stream_format=self._format)
+                error_status=self._error_status, stream_format=self._format,
+                under_way=self._under_way)
 
     def samples(self, since: float | None = None, count: int = 1 << 16) -> Samples:
         """Copies of the recent samples: from device time ``since`` (seconds), or the
@@ -437,6 +444,7 @@ class Watch:
                 else:
                     self._handle(kind, payload)
                     self.session.tick()
+                self._check_progress()
                 self._check_writes()
                 if self.driver is not None and self.driver.poll():
                     self.reason = "done"
@@ -447,6 +455,27 @@ class Watch:
             self._fail(exc)
         finally:
             self._finish()
+
+    def _check_progress(self) -> None:
+        """Publish what is known of the step under way when it changed (at most 10 Hz)."""
+        now = time.monotonic()
+        if now - self._progress_at < 0.1:
+            return
+        self._progress_at = now
+        p = self.session.progress()
+        old = self._under_way
+        key = None if p is None else (p.t_step, p.phase, p.rise_time, p.peak_time)
+        if key == (None if old is None else (old.t_step, old.phase, old.rise_time,
+                                             old.peak_time)):
+            if p is not None:
+                with self._lock:
+                    self._under_way = p  # elapsed time only
+            return
+        with self._lock:
+            self._under_way = p
+            self._version += 1
+        if p is not None and self.on_progress is not None:
+            self.on_progress(p)
 
     def _fail(self, exc: BaseException) -> None:
         """The session's error (the first one counts): one line and its exit status."""

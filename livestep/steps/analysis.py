@@ -10,7 +10,7 @@ from __future__ import annotations
 import multiprocessing as mp
 from collections import deque
 from collections.abc import Iterable, Iterator
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from multiprocessing.pool import AsyncResult
 
 import numpy as np
@@ -23,7 +23,7 @@ from livestep.steps.model_fit import (
     closed_form_estimate,
     fit_second_order,
 )
-from livestep.steps.progress import StepProgress, step_progress
+from livestep.steps.progress import SETTLING, StepProgress, step_progress
 from livestep.steps.samples import SampleChunk
 
 __all__ = ["AnalysisSettings", "StepAnalyzer", "StepResult", "analyze_chunks", "analyze_window"]
@@ -109,6 +109,7 @@ class StepAnalyzer:
         self.settings = settings
         self.detector = StepDetector(settings.detect, has_setpoint=has_setpoint,
                                      measure=settings.measure)
+        self._progress: tuple[int, StepProgress] | None = None  # (step instant, progress)
 
     def feed(self, chunk: SampleChunk) -> list[StepResult]:
         """Results of the steps whose windows this chunk closed."""
@@ -118,8 +119,18 @@ class StepAnalyzer:
     def progress(self) -> StepProgress | None:
         """What is known of the step under way (``None`` when none is): its instant and
         size, then its rise time, peak and overshoot as the samples show them."""
+        now = self.detector.open_instant()
+        if now is None:
+            return None
+        cached = self._progress
+        if cached is not None and cached[0] == now[0] and cached[1].phase == SETTLING:
+            return replace(cached[1], elapsed=now[1])  # nothing more to learn: no copy
         w = self.detector.open_window()
-        return None if w is None else step_progress(w, self.settings.measure)
+        if w is None:
+            return None
+        p = step_progress(w, self.settings.measure)
+        self._progress = (now[0], p)
+        return p
 
     def finish(self, reason: str = "end of data") -> list[StepResult]:
         """Results of the step still open at the end of the stream (or segment)."""

@@ -197,6 +197,15 @@ class StepDetector:
             self._close(self._buf.end, reason, out)
         return out
 
+    def open_instant(self) -> tuple[int, float] | None:
+        """(global sample index of the step instant, seconds from it to the latest
+        sample) of the step under way, or ``None``: cheap, no copy."""
+        op = self._open
+        if op is None:
+            return None
+        t = self._buf.col(0, op.i_step, self._buf.end)
+        return op.i_step, float(t[-1] - t[0])
+
     def open_window(self) -> StepWindow | None:
         """The step under way (its samples so far, copied; ``end_reason`` "open"), or
         ``None`` when no window is open."""

@@ -278,8 +278,18 @@ class LivestepApp(App[int]):
     def _update_step(self, snap: Snapshot) -> None:
         entry = self._entry(snap)
         live = self.selected is None
-        key = (None if entry is None else entry.result.index, live, self.narrow,
-               entry.result.tags if entry else None)
+        p = snap.under_way
+        if live and p is not None and (not snap.steps or
+                                       p.t_step > snap.steps[-1].result.metrics.t_step):
+            # a step under way, newer than the last finished one: what is known of it
+            key: tuple = ("under way", p.t_step, p.phase, p.rise_time, p.peak_time,
+                          round(p.elapsed, 1))
+            if key != self._shown:
+                self._shown = key
+                self.query_one("#panel", Static).update(views.under_way_panel(p))
+        else:
+            key = (None if entry is None else entry.result.index, live, self.narrow,
+                   entry.result.tags if entry else None)
         if key != self._shown:
             self._shown = key
             guidance = "" if entry is None else views.design_sentence(

@@ -17,7 +17,15 @@ from rich.text import Text
 from livestep.judge.design import SHORT_ASSUMPTION, assess, design_region
 from livestep.judge.profile import Profile
 from livestep.judge.quantities import QUANTITIES, Quantity, value_of
-from livestep.judge.verdict import FAIL, NOT_MEASURED, PASS, SYMBOLS, WARN, format_value
+from livestep.judge.verdict import (
+    FAIL,
+    NOT_MEASURED,
+    PASS,
+    SYMBOLS,
+    WARN,
+    format_seconds,
+    format_value,
+)
 from livestep.live.watch import (
     DISCONNECTED,
     FINISHED,
@@ -31,6 +39,7 @@ from livestep.live.watch import (
 )
 from livestep.steps.analysis import StepResult
 from livestep.steps.measure import MeasureSettings
+from livestep.steps.progress import StepProgress
 from livestep.steps.second_order import step_response
 from livestep.tui.plot import HLine, Marker, Plot, Trace
 
@@ -134,6 +143,30 @@ def design_sentence(result: StepResult, profile: Profile | None, band_pct: float
         return "the profile limits none of overshoot, settling and peak time: no guidance"
     sentences = assess(result.model, region)
     return f"{sentences[0]} ({SHORT_ASSUMPTION})" if sentences else ""
+
+
+_PHASE_WORDS = {"stepped": "stepped, waiting for the response", "rising": "rising",
+                "risen": "risen, waiting for the peak", "settling": "settling"}
+
+
+def under_way_panel(p: StepProgress) -> RenderableType:
+    """The step under way, as far as it is known: instant and size, then the rise time,
+    then the peak and overshoot, then "settling" (provisional figures, read against the
+    setpoint's target; the verdict comes when the window closes)."""
+    head = Text()
+    head.append("step under way", "bold")
+    size = "" if p.size is None else f" {p.size:+.4g}"
+    head.append(f"  {p.direction}{size} at {p.t_step:.3f} s  ({p.elapsed:.1f} s ago)")
+    lines = [head, Text(_PHASE_WORDS.get(p.phase, p.phase), style="italic")]
+    if p.rise_time is not None:
+        lines.append(Text(f"rise        {format_seconds(p.rise_time)}"))
+    if p.overshoot_pct is not None:
+        peak = ("no overshoot" if p.peak_time is None else
+                f"{p.overshoot_pct:.3g} % at {format_seconds(p.peak_time)}")
+        lines.append(Text(f"peak        {peak}"))
+    lines.append(Text("provisional, against the setpoint; the verdict follows once settled",
+                      style="dim"))
+    return Group(*lines)
 
 
 def step_panel(e: StepEntry | None, *, live: bool, narrow: bool = False,

@@ -270,3 +270,54 @@ def test_ring_buffer_keeps_the_last_samples_in_order():
     assert ring.since(17.5)[2].tolist() == [36, 38, 40, 42, 44]
     assert ring.since(0.0)[0].tolist() == list(range(13, 23))
     assert ring.since(99.0).shape == (3, 0)
+
+
+def test_a_held_manual_step_gives_its_result_while_it_is_held(tmp_path):
+    # The virtual bench (livestep sim, the exact sampled second-order response) with a loop
+    # that settles in about 0.2 s: 4 / (zeta wn) = 0.2 s (Ogata's rule of thumb). The
+    # setpoint is stepped once by hand, as an engineer would, and held.
+    link, rec = tmp_path / "bench", tmp_path / "held.csv"
+    sim = subprocess.Popen([sys.executable, "-m", "livestep", "sim", "--plant", "second-order",
+                            "--zeta", "0.5", "--wn", "40", "--rate", "2000", "--noise", "0.002",
+                            "--link", str(link), "--duration", "60"],
+                           stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=ROOT)
+    try:
+        assert sim.stdout.readline().strip() == str(link)
+        proc = subprocess.Popen(
+            [sys.executable, "-m", "livestep", "watch", str(link), "--headless", "--progress",
+             "--time-unit", "us", "--record", str(rec)],
+            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=ROOT)
+        line = proc.stderr.readline()
+        assert "recording to" in line, line + proc.stderr.read()
+        time.sleep(1.0)  # a stretch before the step for its initial level
+        fd = os.open(link, os.O_WRONLY | os.O_NOCTTY)
+        os.write(fd, b"sp 1\n")
+        os.close(fd)
+        seen = []
+        while True:  # progress lines, then the step: all while the setpoint is held
+            rec_line = json.loads(proc.stdout.readline())
+            seen.append(rec_line)
+            if "index" in rec_line:
+                break
+        proc.send_signal(signal.SIGTERM)  # only now: the step came while it was held
+        out, err = proc.stdout.read(), proc.stderr.read()
+        proc.wait(timeout=30)
+    finally:
+        sim.terminate()
+        sim.wait(timeout=30)
+    assert proc.returncode == 0, err
+    assert json.loads(out.splitlines()[-1])["summary"]["steps"] == 1
+    step, progress = seen[-1], [x["progress"] for x in seen[:-1]]
+    # closed by the data once settled (3 settling times and a checkpoint: under 1 s of
+    # device time after the setpoint change), not by the end of the session
+    assert step["window_end"] == "settled" and step["settling_time"] < 0.3
+    phases = [p["phase"] for p in progress]
+    assert "settling" in phases and phases == sorted(
+        phases, key=["stepped", "rising", "risen", "settling"].index)
+    # Ogata: overshoot 100 exp(-0.5 pi / sqrt(0.75)) = 16.3 %, read against the setpoint
+    last = progress[-1]
+    assert last["overshoot_pct"] == pytest.approx(16.3, abs=1.0)
+    offline = run_cli("analyze", str(rec), "--json")
+    assert offline.returncode == 0, offline.stderr
+    steps = json.loads(offline.stdout)["steps"]
+    assert close_enough(steps_of([step]), steps_of(steps))
