@@ -193,7 +193,12 @@ def run_watch(args: argparse.Namespace) -> int:
     from livestep.tui.app import run_app
 
     with textual_color():  # --color and NO_COLOR, as textual reads them
-        return run_app(watch)
+        status = run_app(watch)
+    if status == EXIT_OK and profile is not None:  # the same gate as --headless
+        from livestep.judge.verdict import gate_status
+
+        status = gate_status([e.verdict for e in watch.snapshot().steps])
+    return status
 
 
 def run_ports(args: argparse.Namespace) -> int:

@@ -315,7 +315,10 @@ class Watch:
     def add_note(self, name: str, value: str) -> Note:
         """Tag the steps from now on (the device time of the last sample) with
         ``name=value`` (an empty value ends the note); it reaches the session, and through
-        it the recording, on the analysis thread."""
+        it the recording, on the analysis thread. Refused once the session has ended
+        (nothing would record it)."""
+        if self._done.is_set():
+            raise InputError("the session has ended: a note now would be recorded nowhere")
         if not name.strip():
             raise InputError("a note needs a name: NAME=VALUE or a few words")
         name, value = check_note(name, value)

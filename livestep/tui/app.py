@@ -385,6 +385,9 @@ class LivestepApp(App[int]):
             self.paused = src.paused
             return
         self.paused = not self.paused
+        if self.link.done:
+            self.say("the session has ended: nothing is recorded or measured any more")
+            return
         self.say("view paused: recording and measuring go on" if self.paused
                  else "view follows the stream again")
 

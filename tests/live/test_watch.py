@@ -21,6 +21,7 @@ from _pty import Pty
 
 from livestep.cli import main
 from livestep.decode.timebase import ClockSettings
+from livestep.errors import InputError
 from livestep.judge.profile import parse_profile
 from livestep.live.run import run_live
 from livestep.live.session import make_decoder
@@ -321,3 +322,28 @@ def test_a_held_manual_step_gives_its_result_while_it_is_held(tmp_path):
     assert offline.returncode == 0, offline.stderr
     steps = json.loads(offline.stdout)["steps"]
     assert close_enough(steps_of([step]), steps_of(steps))
+
+
+def test_a_note_after_the_session_ended_is_refused():
+    watch = replay_watch(speed=None)
+    watch.start()
+    watch.wait(30)
+    assert watch.done
+    with pytest.raises(InputError, match="session has ended"):
+        watch.add_note("load", "full")
+
+
+def test_the_ui_exit_status_follows_the_profile_as_headless_does(tmp_path, monkeypatch):
+    import livestep.tui.app as tui_app
+
+    def no_screen(watch):  # the UI's run, without a terminal: until the replay ends
+        watch.start()
+        watch.wait(60)
+        return 0
+
+    monkeypatch.setattr(tui_app, "run_app", no_screen)
+    profile = tmp_path / "gate.toml"
+    profile.write_text(PROFILE)  # fails the first two steps of the fixture (see _device)
+    assert main(["watch", str(FIXTURE), "--fast", "--profile", str(profile)]) == 1
+    profile.write_text('name = "loose"\n[limits]\novershoot_pct = { max = 60 }\n')
+    assert main(["watch", str(FIXTURE), "--fast", "--profile", str(profile)]) == 0

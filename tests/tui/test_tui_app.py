@@ -355,3 +355,25 @@ def test_markup_in_tags_is_shown_literally_and_never_ends_the_session(tmp_path):
         assert "gains=[/bold]" in shown and "m=[auto]" in shown
 
     drive(app, script)
+
+
+def test_after_a_live_session_ends_space_and_notes_say_so(tmp_path):
+    dev = Pty()
+    app = pty_app(dev, tmp_path)
+
+    async def script(pilot) -> None:
+        await until(pilot, lambda: app.link.snapshot().state == "waiting for data")
+        dev.write(device_lines([0.0, 1.0], hold=0.3))
+        await until(pilot, lambda: app.link.snapshot().counters["samples"] > 500)
+        app.link.stop()  # the session ends (as at --duration or a lost port for good)
+        await until(pilot, lambda: app.link.done)
+        await pilot.press("space")
+        assert app.message == "the session has ended: nothing is recorded or measured any more"
+        await pilot.press("n", *"load=full", "enter")
+        assert app.message.startswith("the session has ended: a note now would be recorded")
+        assert all(n.name != "load" for n in app.link.snapshot().notes)
+
+    try:
+        drive(app, script)
+    finally:
+        dev.close()
