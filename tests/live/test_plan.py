@@ -246,3 +246,56 @@ def test_a_rendered_setpoint_is_the_number_checked_or_the_plan_is_refused(levels
         assert cmd.text.startswith("SP ")
         assert float(cmd.text[3:]) == pytest.approx(cmd.value, rel=1e-9, abs=1e-12)
         assert all(" " <= ch <= "~" for ch in cmd.text)
+
+
+GOOD, BAD = 6, 1  # how often a harmless piece is drawn against a hostile one
+
+
+def pieces(good: list, bad: list) -> st.SearchStrategy:
+    return st.sampled_from(good * GOOD + bad * BAD)
+
+
+@settings(max_examples=400, deadline=None)
+@given(prefix=pieces(["sp ", "SP ", "sp  "], ["sp -", "sp 1", "sp\t"]),
+       field=pieces(["{value}", "{value:g}", "{value:.3f}", "{value:e}", "{value:+g}",
+                     "{value:>8.2f}"],
+                    ["{value:.0f}", "{value!s}", "{value:0<5}", "{value:.0%}", "{value:,}",
+                     "{value:n}"]),
+       suffix=pieces([""], ["0", "e3", "; sp 1000", " ", "\n", "\x00", "\r", " | reboot",
+                            ".5", "\u202e"]),
+       safe=pieces([None, "sp 0", "sp 0.5"], ["sp 1000", "sp -1", "sp 2", "motor off",
+                                              "sp 0\nsp 9", "sp 0;sp 9"]),
+       levels=st.lists(pieces([0.0, 0.25, 1.0, 1.5, 2.0], [-2.0, -1.0, 2.5, 3.0, 4.0]),
+                       min_size=1, max_size=4))
+def test_whatever_a_plan_says_the_device_reads_only_numbers_inside_the_limits(
+        prefix, field, suffix, safe, levels):
+    # The device is the virtual bench's own command parser (livestep.bench.commands), not
+    # the plan module: every line an accepted plan may send must read there as one setpoint
+    # command inside [min, max], each the level it stands for, and no change (rest, the
+    # levels in order, the safe command after any level) larger than max_step.
+    from livestep.bench.commands import CommandError, parse_command
+
+    commands = {"setpoint": prefix + field + suffix}
+    if safe is not None:
+        commands["safe"] = safe
+    doc = {**HOSTILE, "levels": levels, "repeats": 2, "commands": commands}
+    try:
+        plan = parse_plan(doc)
+        check_sendable(plan)
+    except InputError:
+        return
+    lo, hi, step = -1.0, 3.0, 2.0
+    read = {}
+    for line in plan.lines:
+        assert all(" " <= ch <= "~" for ch in line) and not set(line) & set(";|&")
+        try:
+            cmd = parse_command(line)
+        except CommandError as err:
+            raise AssertionError(f"the device cannot read {line!r}: {err}") from None
+        assert cmd is not None and cmd.kind == "sp" and lo <= cmd.value <= hi, line
+        read[line] = cmd.value
+    sent = [read[c.text] for c in plan.commands]
+    assert sent == [c.value for c in plan.commands]
+    seq = [0.0, *sent]
+    assert all(abs(b - a) <= step for a, b in zip(seq, seq[1:], strict=False))
+    assert all(abs(read[plan.safe] - x) <= step for x in sent)
