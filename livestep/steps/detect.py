@@ -45,7 +45,8 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from livestep.steps.measure import MeasureSettings, measure_step, noise_sigma, robust_level
+from livestep.steps.measure import MeasureSettings, noise_sigma, robust_level
+from livestep.steps.settle import confirmed_settled
 
 __all__ = ["DetectorSettings", "StepDetector", "StepWindow"]
 
@@ -143,6 +144,7 @@ class _Open:
     sp_after: float | None
     next_check: int = 0  # samples after i_step of the next settled check
     level: tuple[float, float] | None = None  # initial level and noise sigma, once known
+    not_before: float = -np.inf  # no settled close before this time (seconds)
 
 
 class StepDetector:
@@ -366,46 +368,21 @@ class StepDetector:
             self._close(limit, "longest window", out)
 
     def _settled(self, op: _Open, stop: int) -> bool:
-        """Whether the response of the open step, samples up to ``stop``, has settled and
-        stayed in the band for half its settling time since. A cheap look at the last
-        quarter of the window first: it must have moved and be flat within the band."""
+        """Whether the open step, samples up to ``stop``, may close as settled
+        (:func:`~livestep.steps.settle.confirmed_settled`)."""
         b = self._buf
         t = b.col(0, op.pre_start, stop)
-        fb = b.col(1, op.pre_start, stop)
         i = op.i_step - op.pre_start
-        if i < 3:
+        if t[-1] < op.not_before or i < 3:
             return False
+        fb = b.col(1, op.pre_start, stop)
         if op.level is None:
             op.level = (robust_level(fb[:i]), noise_sigma(fb[:i]))
-        initial, sigma = op.level
-        tail = fb[stop - op.pre_start - max(self.settings.hold_samples, (stop - op.i_step) // 4):]
-        amp = float(np.mean(tail)) - initial
-        band = self.measure.settling_band / 100.0
-        if abs(amp) < 5.0 * sigma or float(np.ptp(tail)) > 2.0 * band * abs(amp) + 8.0 * sigma:
-            return False
-        if op.sp_before is not None and op.sp_after is not None and op.sp_after != op.sp_before:
-            # Not before the loop has clearly answered the setpoint change (inside a dead
-            # time a slow drift can look settled); a loop that ends far from its setpoint
-            # keeps its window to the next step.
-            if amp / (op.sp_after - op.sp_before) < 0.5:
-                return False
-        try:
-            m = measure_step(t, fb, i, setpoint=b.col(2, op.pre_start, stop)
-                             if self.has_setpoint else None, setpoint_before=op.sp_before,
-                             setpoint_after=op.sp_after, settings=self.measure)
-        except Exception:  # noqa: BLE001 - a bug there must not end the stream: not settled
-            return False
-        if not m.settled or m.settling_time is None or m.rise_time is None:
-            return False
-        since = m.t_step + m.settling_time
-        if float(t[-1]) - since < 2.0 * m.settling_time:
-            return False
-        # Not creeping either (an integrator still pulling the error out inside the band):
-        # a line fitted to the confirmation stretch moves by at most a quarter of the band.
-        sel = t >= since
-        tt = t[sel] - since
-        slope = float(np.polyfit(tt, fb[sel], 1)[0]) if tt.size >= 3 else 0.0
-        return abs(slope) * float(tt[-1]) <= 0.25 * band * abs(m.amplitude)
+        done, op.not_before = confirmed_settled(
+            t, fb, b.col(2, op.pre_start, stop) if self.has_setpoint else None, i,
+            op.sp_before, op.sp_after, level=op.level, tail_min=self.settings.hold_samples,
+            settings=self.measure)
+        return done
 
     def _close(self, stop: int, reason: str, out: list[StepWindow]) -> None:
         op = self._open

@@ -314,7 +314,7 @@ def test_a_real_terminal_shows_the_replay_and_quits(tmp_path):
     profile.write_text(PROFILE)
     status, text = run_in_terminal(["watch", str(FIXTURE), "--speed", "20", "--profile",
                                     str(profile)], b"q", until="replay finished")
-    assert status == 0
+    assert status == 1  # two steps fail the gate: the same status as --headless
     assert "replay finished" in text and "✘ fail" in text and "✔ pass" in text
     assert "Traceback" not in text
 
