@@ -16,14 +16,14 @@ none. The step instant is the first sample carrying the new setpoint value.
 
 A window closes at the next step, a ramp, ``max_window`` or the end of data, or as soon
 as its response has settled (``close_when_settled``): at checkpoints 2 ``hold_samples``
-after the step instant and then every 25 % more samples, the window so far is measured
+after the step instant and then every 50 % more samples, the window so far is measured
 (:func:`~livestep.steps.measure.measure_step`); it closes there, with the reason
 ``settled``, once the response is settled by the measurement's own rule, has stayed in the
 band for twice its settling time since (the confirmation time: by then what is left of a
 second-order transient is a small fraction of the band, so the final level read from the
 window's tail is not biased by it) and does not creep there (a line fitted to that stretch
 moves by at most a quarter of the band: an integrator still pulling the error out keeps
-the window open). A loop that settles in 0.2 s is closed between 0.6 and 0.75 s after the
+the window open). A loop that settles in 0.2 s is closed between 0.6 and 0.9 s after the
 step. The checkpoints are
 counted in samples and a checkpoint is only judged once no setpoint change can come
 before it, so the decision does not depend on chunk sizes either.
@@ -360,7 +360,7 @@ class StepDetector:
         if self.settings.close_when_settled:
             while op.i_step + op.next_check <= (upto if limit is None else limit):
                 stop = op.i_step + op.next_check
-                op.next_check = max(op.next_check + 1, -(-op.next_check * 5 // 4))
+                op.next_check = max(op.next_check + 1, -(-op.next_check * 3 // 2))
                 if self._settled(op, stop):
                     self._close(stop, "settled", out)
                     return

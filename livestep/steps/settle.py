@@ -24,19 +24,24 @@ def confirmed_settled(t: FloatArray, feedback: FloatArray, setpoint: FloatArray 
     ``feedback``, ``setpoint`` with the step instant at ``i_step``; ``level``: the initial
     level and noise sigma (feedback units).
 
-    It may close when the response has moved (5 sigma) and its last quarter (at least
-    ``tail_min`` samples) is flat within the band, it has answered at least half of the
-    setpoint change, the measurement calls it settled, it has stayed in the band for
-    twice its settling time since, and a line fitted to that confirmation stretch moves
-    by at most a quarter of the band (not creeping). While only the confirmation is
-    missing, the second value says when it can end, so nothing needs measuring before.
+    It may close when the response has moved (5 sigma) and the last two thirds of the
+    window (at least ``tail_min`` samples) are flat within the band and drift by at most a
+    quarter of it, it has answered at least half of the setpoint change, the measurement
+    calls it settled, it has stayed in the band for twice its settling time since, and a
+    line fitted to that confirmation stretch moves by at most a quarter of the band (not
+    creeping). While only the confirmation is missing, the second value says when it can
+    end, so nothing needs measuring before.
     """
     wait = -np.inf
     initial, sigma = level
-    tail = feedback[-max(tail_min, (feedback.size - i_step) // 4):]
+    # the last two thirds: once confirmed (in the band for twice the settling time), that
+    # much of the window is in the band, so the measurement below mostly confirms at once
+    tail = feedback[-max(tail_min, 2 * (feedback.size - i_step) // 3):]
     amp = float(np.mean(tail)) - initial
     band = settings.settling_band / 100.0
     if abs(amp) < 5.0 * sigma or float(np.ptp(tail)) > 2.0 * band * abs(amp) + 8.0 * sigma:
+        return False, wait
+    if _drift(t[-tail.size:], tail) > 0.25 * band * abs(amp):  # still creeping: not yet
         return False, wait
     if setpoint_before is not None and setpoint_after is not None \
             and setpoint_after != setpoint_before:
@@ -58,6 +63,11 @@ def confirmed_settled(t: FloatArray, feedback: FloatArray, setpoint: FloatArray 
         return False, since + 2.0 * m.settling_time
     # Not creeping either (an integrator still pulling the error out inside the band).
     sel = t >= since
-    tt = t[sel] - since
-    slope = float(np.polyfit(tt, feedback[sel], 1)[0]) if tt.size >= 3 else 0.0
-    return abs(slope) * float(tt[-1]) <= 0.25 * band * abs(m.amplitude), wait
+    return _drift(t[sel], feedback[sel]) <= 0.25 * band * abs(m.amplitude), wait
+
+
+def _drift(t: FloatArray, y: FloatArray) -> float:
+    """How far a straight line fitted to ``y`` over ``t`` moves across it (y's units)."""
+    if t.size < 3:
+        return 0.0
+    return abs(float(np.polyfit(t - t[0], y, 1)[0])) * float(t[-1] - t[0])

@@ -126,8 +126,8 @@ def test_a_held_step_closes_soon_after_it_settles(noise):
     assert len(wins) == 1 and wins[0].end_reason == "settled"
     held = wins[0].t[-1] - wins[0].t_step
     # confirmed: in the band for twice the settling time again, then the next checkpoint
-    # (+25 %); the noise moves the measured settling time by a few per cent
-    assert 0.95 * 3.0 * ts <= held <= 1.25 * (3.0 * ts + 0.04) + 0.05
+    # (+50 %); the noise moves the measured settling time by a few per cent
+    assert 0.95 * 3.0 * ts <= held <= 1.5 * (3.0 * ts + 0.04) + 0.05
     assert held < 1.5  # well within 1.5 s of the setpoint change
 
 
