@@ -23,6 +23,7 @@ from livestep.judge.verdict import (
     PASS,
     SYMBOLS,
     WARN,
+    format_difference,
     format_seconds,
     format_value,
 )
@@ -195,7 +196,7 @@ def step_panel(e: StepEntry | None, *, live: bool, narrow: bool = False,
         for c in e.verdict.checks:
             q = QUANTITIES[c.quantity]
             table.add_row(q.short, format_value(q, c.value), _limit_text(q, c.low, c.high),
-                          "–" if c.margin is None else format_value(q, c.margin),
+                          "–" if c.margin is None else format_difference(q, c.margin),
                           verdict_text(c.verdict))
     else:
         for name in DEFAULT_QUANTITIES:
