@@ -19,7 +19,14 @@ from collections.abc import Callable
 from typing import Protocol
 
 from livestep.decode.counters import LinkCounters
-from livestep.decode.frames import FRAME_LOG, FRAME_SAMPLES, MAX_CHANNELS, MAX_ENCODED, crc16
+from livestep.decode.frames import (
+    FRAME_LOG,
+    FRAME_SAMPLES,
+    MAX_CHANNELS,
+    MAX_ENCODED,
+    cobs_decode,
+    crc16,
+)
 from livestep.decode.lines import looks_like_data
 from livestep.steps.samples import SampleChunk
 from livestep.steps.tags import Note, clean_text
@@ -40,26 +47,12 @@ class Decoder(Protocol):
     def flush(self) -> list[SampleChunk]: ...
 
 
-def _cobs_decode(enc: bytes) -> bytes | None:
-    out = bytearray()
-    i, n = 0, len(enc)
-    while i < n:
-        code = enc[i]
-        if code == 0 or i + code > n:
-            return None
-        out += enc[i + 1:i + code]
-        i += code
-        if code != 0xFF and i < n:
-            out.append(0)
-    return bytes(out)
-
-
 def is_valid_frame(enc: bytes) -> bool:
     """Whether ``enc`` (the bytes between two delimiters) is a whole sample or log frame
     with a good CRC (see :mod:`livestep.decode.frames`)."""
     if not 7 <= len(enc) <= MAX_ENCODED:
         return False
-    p = _cobs_decode(enc)
+    p = cobs_decode(enc)
     if p is None or len(p) < 6 or crc16(p[:-2]) != p[-2] | (p[-1] << 8):
         return False
     if p[0] == FRAME_SAMPLES:

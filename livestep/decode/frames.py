@@ -77,6 +77,7 @@ __all__ = [
     "MAX_CHANNELS",
     "MAX_ENCODED",
     "MAX_LOG_TEXT",
+    "cobs_decode",
     "cobs_encode",
     "crc16",
     "encode_log_frame",
@@ -201,7 +202,7 @@ def cobs_encode(data: bytes) -> bytes:
     return bytes(out)
 
 
-def _cobs_decode(enc: bytes) -> bytes | None:
+def cobs_decode(enc: bytes) -> bytes | None:
     """Exact COBS decoding of one frame (no delimiter); ``None`` if malformed."""
     out = bytearray()
     i, n = 0, len(enc)
@@ -488,7 +489,7 @@ class FrameDecoder:
                     m = dec[(s0 + 1)[:, None] + np.arange(size)]
                 self._classify(read, rows, m)
         for i in slow:
-            payload = _cobs_decode(arr[starts[i] : ends[i]].tobytes())
+            payload = cobs_decode(arr[starts[i] : ends[i]].tobytes())
             if payload is None:
                 status[i] = _CODE["bad cobs"]
             else:
