@@ -16,7 +16,7 @@ from multiprocessing.pool import AsyncResult
 import numpy as np
 
 from livestep.steps.detect import DetectorSettings, StepDetector, StepWindow
-from livestep.steps.measure import MeasureSettings, StepMetrics, measure_step
+from livestep.steps.measure import MeasureSettings, StepMetrics, measure_step, without_figures
 from livestep.steps.model_fit import (
     ClosedFormEstimate,
     ModelFit,
@@ -92,13 +92,11 @@ def unmeasured(w: StepWindow, reason: str) -> StepMetrics:
     change = (None if w.setpoint_before is None or w.setpoint_after is None
               else w.setpoint_after - w.setpoint_before)
     dt = float(np.median(np.diff(w.t))) if w.t.size > 1 else 0.0
-    return StepMetrics(
+    return without_figures(
         t_step=t_step, direction="up" if (change or 0.0) >= 0 else "down",
         setpoint_before=w.setpoint_before, setpoint_after=w.setpoint_after, initial=level,
-        final=level, amplitude=0.0, rise_time=None, delay_time=None, peak_time=None,
-        peak=None, overshoot_pct=0.0, undershoot_pct=0.0, settling_time=None, settled=False,
-        steady_state_error=None, steady_state_error_pct=None, iae=None, ise=None, itae=None,
-        noise_sigma=0.0, sample_period=dt, smoothing_samples=1, warnings=(reason,))
+        final=level, steady_state_error=None, noise_sigma=0.0, sample_period=dt,
+        smoothing_samples=1, warnings=(reason,))
 
 
 class StepAnalyzer:

@@ -46,7 +46,8 @@ from numpy.typing import NDArray
 
 from livestep.steps.smoothing import choose_spans, first_crossing, noise_gain, smoothed
 
-__all__ = ["MeasureSettings", "StepMetrics", "measure_step", "noise_sigma", "robust_level"]
+__all__ = ["MeasureSettings", "StepMetrics", "measure_step", "noise_sigma", "robust_level",
+           "without_figures"]
 
 FloatArray = NDArray[np.float64]
 
@@ -102,6 +103,23 @@ class StepMetrics:
     warnings: tuple[str, ...] = field(default=())
     #: First crossing of the low rise reference level, seconds from ``t_step`` (plots).
     rise_start: float | None = None
+
+
+def without_figures(*, t_step: float, direction: str, setpoint_before: float | None,
+                    setpoint_after: float | None, initial: float, final: float,
+                    steady_state_error: float | None, noise_sigma: float,
+                    sample_period: float, smoothing_samples: int,
+                    warnings: tuple[str, ...]) -> StepMetrics:
+    """The metrics of a step that has no response to measure (or could not be measured):
+    its instant, setpoints and levels, every figure ``None``, ``warnings`` saying why."""
+    return StepMetrics(
+        t_step=t_step, direction=direction, setpoint_before=setpoint_before,
+        setpoint_after=setpoint_after, initial=initial, final=final,
+        amplitude=final - initial, rise_time=None, delay_time=None, peak_time=None,
+        peak=None, overshoot_pct=0.0, undershoot_pct=0.0, settling_time=None, settled=False,
+        steady_state_error=steady_state_error, steady_state_error_pct=None, iae=None,
+        ise=None, itae=None, noise_sigma=noise_sigma, sample_period=sample_period,
+        smoothing_samples=smoothing_samples, warnings=warnings)
 
 
 def robust_level(x: FloatArray) -> float:
@@ -250,14 +268,12 @@ def measure_step(
         warnings.append(f"the feedback did not follow the setpoint change (it moved"
                         f" {100.0 * amp / sp_change:.2g} % of it): no response to measure")
     if still:
-        return StepMetrics(
+        return without_figures(
             t_step=t_step, direction=direction, setpoint_before=setpoint_before,
-            setpoint_after=setpoint_after, initial=initial, final=final, amplitude=amp,
-            rise_time=None, delay_time=None, peak_time=None, peak=None, overshoot_pct=0.0,
-            undershoot_pct=0.0, settling_time=None, settled=False,
+            setpoint_after=setpoint_after, initial=initial, final=final,
             steady_state_error=None if setpoint_after is None else setpoint_after - final,
-            steady_state_error_pct=None, iae=None, ise=None, itae=None, noise_sigma=sigma,
-            sample_period=dt, smoothing_samples=w_shape, warnings=tuple(warnings))
+            noise_sigma=sigma, sample_period=dt, smoothing_samples=w_shape,
+            warnings=tuple(warnings))
 
     r_rise = (yr - initial) / amp
     r = (ys - initial) / amp
