@@ -467,17 +467,11 @@ class Watch:
         self._progress_at = now
         p = self.session.progress()
         old = self._under_way
-        key = None if p is None else (p.t_step, p.phase, p.rise_time, p.peak_time)
-        if key == (None if old is None else (old.t_step, old.phase, old.rise_time,
-                                             old.peak_time)):
-            if p is not None:
-                with self._lock:
-                    self._under_way = p  # elapsed time only
-            return
+        changed = (p and p.known()) != (old and old.known())  # more than the time elapsed
         with self._lock:
             self._under_way = p
-            self._version += 1
-        if p is not None and self.on_progress is not None:
+            self._version += int(changed)
+        if changed and p is not None and self.on_progress is not None:
             self.on_progress(p)
 
     def _fail(self, exc: BaseException) -> None:

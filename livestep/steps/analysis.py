@@ -123,7 +123,7 @@ class StepAnalyzer:
         cached = self._progress
         if cached is not None and cached[0] == now[0] and cached[1].phase == SETTLING:
             return replace(cached[1], elapsed=now[1])  # nothing more to learn: no copy
-        w = self.detector.open_window()
+        w = self.detector.open_window(copy=False)  # read here and now: no copy needed
         if w is None:
             return None
         p = step_progress(w, self.settings.measure)

@@ -208,17 +208,22 @@ class StepDetector:
         t = self._buf.col(0, op.i_step, self._buf.end)
         return op.i_step, float(t[-1] - t[0])
 
-    def open_window(self) -> StepWindow | None:
-        """The step under way (its samples so far, copied; ``end_reason`` "open"), or
-        ``None`` when no window is open."""
+    def open_window(self, *, copy: bool = True) -> StepWindow | None:
+        """The step under way (its samples so far; ``end_reason`` "open"), or ``None``
+        when no window is open. ``copy=False`` gives views into the detector's buffer,
+        valid only until the next :meth:`feed`."""
         op = self._open
         if op is None or self._buf.end - op.i_step < 2:
             return None
         b, stop = self._buf, self._buf.end
+
+        def col(k: int) -> FloatArray:
+            c = b.col(k, op.pre_start, stop)
+            return c.copy() if copy else c
+
         return StepWindow(
-            index=self._count, t=b.col(0, op.pre_start, stop).copy(),
-            feedback=b.col(1, op.pre_start, stop).copy(),
-            setpoint=b.col(2, op.pre_start, stop).copy() if self.has_setpoint else None,
+            index=self._count, t=col(0), feedback=col(1),
+            setpoint=col(2) if self.has_setpoint else None,
             i_step=op.i_step - op.pre_start, setpoint_before=op.sp_before,
             setpoint_after=op.sp_after, end_reason="open")
 

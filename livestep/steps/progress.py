@@ -48,6 +48,11 @@ class StepProgress:
     peak_time: float | None = None
     overshoot_pct: float | None = None
 
+    def known(self) -> tuple[float, str, float | None, float | None]:
+        """What is known of the step, apart from the time elapsed: it changes only when
+        there is news (a new step, a new phase, the rise or the peak)."""
+        return self.t_step, self.phase, self.rise_time, self.peak_time
+
 
 def step_progress(w: StepWindow, settings: MeasureSettings | None = None) -> StepProgress:
     """What the samples of the open window ``w`` tell so far (see the module docstring)."""

@@ -282,8 +282,7 @@ class LivestepApp(App[int]):
         if live and p is not None and (not snap.steps or
                                        p.t_step > snap.steps[-1].result.metrics.t_step):
             # a step under way, newer than the last finished one: what is known of it
-            key: tuple = ("under way", p.t_step, p.phase, p.rise_time, p.peak_time,
-                          round(p.elapsed, 1))
+            key: tuple = ("under way", *p.known(), round(p.elapsed, 1))
             if key != self._shown:
                 self._shown = key
                 self.query_one("#panel", Static).update(views.under_way_panel(p))
