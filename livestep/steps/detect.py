@@ -358,10 +358,9 @@ class StepDetector:
         op = self._open
         if op is None or upto <= op.i_step:
             return
-        t_step = float(self._buf.col(0, op.i_step, op.i_step + 1)[0])
-        t = self._buf.col(0, op.i_step, upto)
-        over = np.flatnonzero(t - t_step > self.settings.max_window)
-        limit = op.i_step + int(over[0]) if over.size else None
+        t = self._buf.col(0, op.i_step, upto)  # increasing: a binary search, not a scan
+        k = int(np.searchsorted(t, t[0] + self.settings.max_window, side="right"))
+        limit = op.i_step + k if k < t.size else None
         if self.settings.close_when_settled:
             while op.i_step + op.next_check <= (upto if limit is None else limit):
                 stop = op.i_step + op.next_check
