@@ -164,8 +164,9 @@ def run_livestep(path: str) -> dict[str, float]:
             "fitted": sum(r.model is not None for r in results)}
 
 
-def run_baseline(path: str) -> dict[str, float]:
-    """Whole file into memory, setpoint jumps by numpy.diff, control.step_info per segment."""
+def run_baseline(path: str, parser: str = "loadtxt") -> dict[str, float]:
+    """Whole file into memory (``numpy.loadtxt`` or ``pandas.read_csv``), setpoint jumps by
+    numpy.diff, control.step_info per segment: the script a user would write."""
     import control
 
     t0 = time.perf_counter()
@@ -175,7 +176,12 @@ def run_baseline(path: str) -> dict[str, float]:
             skip += 1
             if not line.startswith(b"#"):
                 break  # the header row
-    data = np.loadtxt(path, delimiter=",", skiprows=skip)
+    if parser == "pandas":
+        import pandas as pd
+
+        data = pd.read_csv(path, comment="#").to_numpy()
+    else:
+        data = np.loadtxt(path, delimiter=",", skiprows=skip)
     t, sp, fb = data[:, 0], data[:, 1], data[:, 2]
     jumps = np.flatnonzero(np.diff(sp) != 0.0) + 1
     ends = np.append(jumps[1:], sp.size)
@@ -189,7 +195,10 @@ def run_baseline(path: str) -> dict[str, float]:
 
 
 def _child(side: str, path: str) -> None:
-    result = run_livestep(path) if side == "livestep" else run_baseline(path)
+    if side == "livestep":
+        result = run_livestep(path)
+    else:
+        result = run_baseline(path, "pandas" if side == "pandas script" else "loadtxt")
     json.dump(result, sys.stdout)
 
 
@@ -245,7 +254,8 @@ def main() -> None:
                     help="run each side N times, interleaved; report the fastest (default 1)")
     ap.add_argument("--profile", type=int, metavar="N",
                     help="instead of the comparison, profile the livestep side (top N)")
-    ap.add_argument("--side", choices=("livestep", "baseline"), help=argparse.SUPPRESS)
+    ap.add_argument("--side", choices=("livestep", "baseline", "pandas script"),
+                    help=argparse.SUPPRESS)
     ap.add_argument("recording", nargs="?", help=argparse.SUPPRESS)
     args = ap.parse_args()
     if args.side:

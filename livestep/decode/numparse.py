@@ -1,12 +1,21 @@
 """Fast, exact parsing of blocks of comma-separated numeric lines (bytes in, a 2-D array out).
 
-Shared by the recording reader and the text stream decoder. Plain decimals take an
-exact vectorised path; anything else (exponents, nan, signs) the general numpy parser;
-a block that neither can read whole returns ``None`` for the caller's line-by-line path.
+Shared by the recording reader and the text stream decoder. Every path gives the double
+Python's ``float()`` gives for the cell's text, bit for bit:
+
+- a few lines (a small serial read): ``float()`` on each cell, the cheapest per call;
+- a large block of plain decimals (digits, ``.``, ``-``): pandas' C CSV parser, about
+  four times our own vectorised parser on this machine (``tools/bench_decode.py``);
+- otherwise our vectorised plain-decimal parser, then numpy's general text parser
+  (exponents, nan, signs);
+
+and a block that none of them can read whole returns ``None`` for the caller's
+line-by-line path.
 """
 
 from __future__ import annotations
 
+import io
 import warnings
 
 import numpy as np
@@ -27,7 +36,18 @@ def parse_block(block: bytes, nlines: int, ncol: int) -> np.ndarray | None:
     """Values of ``nlines`` complete lines of ``ncol`` comma-separated numbers each (every
     line ending in a newline, no ``\r``), shape (nlines, ncol); ``None`` when any line is
     not exactly that (the caller then goes line by line)."""
-    if nlines == 0 or block.count(b",") != nlines * (ncol - 1) or b"\n\n" in block:
+    if nlines == 0 or b"\n\n" in block:
+        return None
+    if nlines <= _FEW_LINES:
+        return _cell_by_cell(block, nlines, ncol)
+    if nlines >= _LIBRARY_LINES and not block.translate(None, _PLAIN_BYTES):
+        return _library(block, nlines, ncol)
+    return _vectorised(block, nlines, ncol)
+
+
+def _vectorised(block: bytes, nlines: int, ncol: int) -> np.ndarray | None:
+    """Our own parsers: plain decimals exactly, then numpy's general text parser."""
+    if block.count(b",") != nlines * (ncol - 1):
         return None
     data = _plain_decimals(block, nlines, ncol)
     if data is not None or not _rows_aligned(block, ncol) or _blank_cell(block):
@@ -39,6 +59,49 @@ def parse_block(block: bytes, nlines: int, ncol: int) -> np.ndarray | None:
         except ValueError:  # a cell that is not a number
             return None
     return flat.reshape(nlines, ncol) if flat.size == nlines * ncol else None
+
+
+#: Lines up to which ``float()`` per cell beats the vectorised parsers (their fixed cost is
+#: some tens of microseconds a call), and from which pandas' parser beats ours (its fixed
+#: cost is about 0.3 ms a call). Measured with ``tools/bench_decode.py --section small``.
+_FEW_LINES = 64
+_LIBRARY_LINES = 4096
+
+
+def _cell_by_cell(block: bytes, nlines: int, ncol: int) -> np.ndarray | None:
+    """``float()`` of every cell of a few lines; ``None`` when a line has the wrong number
+    of cells or a cell is not a number (``1_000``, which ``float()`` reads, included)."""
+    if b"_" in block:
+        return None
+    lines = block.split(b"\n")
+    try:
+        rows = [[float(c) for c in ln.split(b",")] for ln in lines[:nlines]]
+    except ValueError:
+        return None
+    if any(len(r) != ncol for r in rows):
+        return None
+    return np.array(rows, dtype=np.float64).reshape(nlines, ncol)
+
+
+def _library(block: bytes, nlines: int, ncol: int) -> np.ndarray | None:
+    """pandas' C parser on a block of plain-decimal lines (``None`` if it refuses a cell or
+    a row; our own parser when pandas is missing). It reads such cells as ``float()``
+    does; the tests check it bit for bit (``tests/decode/test_numparse.py``). Plain text
+    has no ``nan``, so a NaN can only be a missing cell."""
+    try:
+        import pandas as pd
+    except ImportError:  # pragma: no cover - pandas is a dependency; our own parser remains
+        return _vectorised(block, nlines, ncol)
+    try:
+        frame = pd.read_csv(io.BytesIO(block), header=None, names=range(ncol),
+                            dtype=np.float64, engine="c", na_filter=False,
+                            low_memory=False)
+    except (ValueError, pd.errors.ParserError):  # a cell float() refuses, a row too long
+        return None
+    data = frame.to_numpy(dtype=np.float64)
+    if data.shape != (nlines, ncol) or np.isnan(data).any():  # a row too short: NaN-filled
+        return None
+    return data
 
 
 def _blank_cell(block: bytes) -> bool:

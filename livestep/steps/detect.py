@@ -40,12 +40,12 @@ the time to move 8 sigma; a ramp of the feedback is taken as a jump.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import NDArray
 
-from livestep.steps.measure import MeasureSettings, noise_sigma, robust_level
+from livestep.steps.measure import MeasureSettings, StepMetrics, noise_sigma, robust_level
 from livestep.steps.settle import confirmed_settled
 
 __all__ = ["DetectorSettings", "StepDetector", "StepWindow"]
@@ -93,6 +93,10 @@ class StepWindow:
     setpoint_before: float | None
     setpoint_after: float | None
     end_reason: str
+    #: A window closed as settled: the settings and the measurement of exactly these
+    #: samples that closed it, so the analysis need not measure them again.
+    measured: tuple[MeasureSettings, StepMetrics] | None = field(
+        default=None, compare=False, repr=False)
 
     @property
     def t_step(self) -> float:
@@ -230,9 +234,10 @@ class StepDetector:
     # -- setpoint mode ----------------------------------------------------------
     def _moving(self, start: int, stop: int) -> NDArray[np.intp]:
         sp = self._buf.col(2, start - 1, stop)
-        prev, cur = sp[:-1], sp[1:]
+        changed = np.flatnonzero(sp[1:] != sp[:-1])  # the tolerance is >= 0: only these
+        prev, cur = sp[changed], sp[changed + 1]
         tol = self.settings.setpoint_tolerance + 1e-9 * np.maximum(np.abs(prev), np.abs(cur))
-        return start + np.flatnonzero(np.abs(cur - prev) > tol)
+        return start + changed[np.abs(cur - prev) > tol]
 
     def _scan_setpoint(self, out: list[StepWindow]) -> None:
         s = self.settings
@@ -365,30 +370,32 @@ class StepDetector:
             while op.i_step + op.next_check <= (upto if limit is None else limit):
                 stop = op.i_step + op.next_check
                 op.next_check = max(op.next_check + 1, -(-op.next_check * 3 // 2))
-                if self._settled(op, stop):
-                    self._close(stop, "settled", out)
+                measured = self._settled(op, stop)
+                if measured is not None:
+                    self._close(stop, "settled", out, measured)
                     return
         if limit is not None:
             self._close(limit, "longest window", out)
 
-    def _settled(self, op: _Open, stop: int) -> bool:
-        """Whether the open step, samples up to ``stop``, may close as settled
-        (:func:`~livestep.steps.settle.confirmed_settled`)."""
+    def _settled(self, op: _Open, stop: int) -> StepMetrics | None:
+        """The measurement of the open step, samples up to ``stop``, when it may close as
+        settled there (:func:`~livestep.steps.settle.confirmed_settled`), else ``None``."""
         b = self._buf
         t = b.col(0, op.pre_start, stop)
         i = op.i_step - op.pre_start
         if t[-1] < op.not_before or i < 3:
-            return False
+            return None
         fb = b.col(1, op.pre_start, stop)
         if op.level is None:
             op.level = (robust_level(fb[:i]), noise_sigma(fb[:i]))
-        done, op.not_before = confirmed_settled(
+        measured, op.not_before = confirmed_settled(
             t, fb, b.col(2, op.pre_start, stop) if self.has_setpoint else None, i,
             op.sp_before, op.sp_after, level=op.level, tail_min=self.settings.hold_samples,
             settings=self.measure)
-        return done
+        return measured
 
-    def _close(self, stop: int, reason: str, out: list[StepWindow]) -> None:
+    def _close(self, stop: int, reason: str, out: list[StepWindow],
+               measured: StepMetrics | None = None) -> None:
         op = self._open
         assert op is not None
         self._open = None
@@ -404,6 +411,7 @@ class StepDetector:
             setpoint_before=op.sp_before,
             setpoint_after=op.sp_after,
             end_reason=reason,
+            measured=None if measured is None else (self.measure, measured),
         ))
         self._count += 1
 

@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
-from livestep.steps.measure import MeasureSettings, measure_step
+from livestep.steps.measure import MeasureSettings, StepMetrics, measure_step
 
 __all__ = ["confirmed_settled"]
 
@@ -19,8 +19,10 @@ FloatArray = NDArray[np.float64]
 def confirmed_settled(t: FloatArray, feedback: FloatArray, setpoint: FloatArray | None,
                       i_step: int, setpoint_before: float | None,
                       setpoint_after: float | None, *, level: tuple[float, float],
-                      tail_min: int, settings: MeasureSettings) -> tuple[bool, float]:
-    """(may close, no close before this time in seconds) for the window ``t`` (seconds),
+                      tail_min: int,
+                      settings: MeasureSettings) -> tuple[StepMetrics | None, float]:
+    """(the window's measurement when it may close, else ``None``; no close before this
+    time in seconds) for the window ``t`` (seconds),
     ``feedback``, ``setpoint`` with the step instant at ``i_step``; ``level``: the initial
     level and noise sigma (feedback units).
 
@@ -40,30 +42,30 @@ def confirmed_settled(t: FloatArray, feedback: FloatArray, setpoint: FloatArray 
     amp = float(np.mean(tail)) - initial
     band = settings.settling_band / 100.0
     if abs(amp) < 5.0 * sigma or float(np.ptp(tail)) > 2.0 * band * abs(amp) + 8.0 * sigma:
-        return False, wait
+        return None, wait
     if _drift(t[-tail.size:], tail) > 0.25 * band * abs(amp):  # still creeping: not yet
-        return False, wait
+        return None, wait
     if setpoint_before is not None and setpoint_after is not None \
             and setpoint_after != setpoint_before:
         # Not before the loop has clearly answered the setpoint change (inside a dead
         # time a slow drift can look settled); a loop that ends far from its setpoint
         # keeps its window to the next step.
         if amp / (setpoint_after - setpoint_before) < 0.5:
-            return False, wait
+            return None, wait
     try:
         m = measure_step(t, feedback, i_step, setpoint=setpoint,
                          setpoint_before=setpoint_before, setpoint_after=setpoint_after,
                          settings=settings)
     except Exception:  # noqa: BLE001 - a bug there must not end the stream: not settled
-        return False, wait
+        return None, wait
     if not m.settled or m.settling_time is None or m.rise_time is None:
-        return False, wait
+        return None, wait
     since = m.t_step + m.settling_time
     if float(t[-1]) - since < 2.0 * m.settling_time:
-        return False, since + 2.0 * m.settling_time
+        return None, since + 2.0 * m.settling_time
     # Not creeping either (an integrator still pulling the error out inside the band).
     sel = t >= since
-    return _drift(t[sel], feedback[sel]) <= 0.25 * band * abs(m.amplitude), wait
+    return (m if _drift(t[sel], feedback[sel]) <= 0.25 * band * abs(m.amplitude) else None), wait
 
 
 def _drift(t: FloatArray, y: FloatArray) -> float:

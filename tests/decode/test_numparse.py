@@ -117,3 +117,59 @@ def test_a_blank_cell_is_refused_not_read_as_minus_one():
             float(cell)
         assert numparse.parse_block(f"1,{cell},2\n3,4,5\n".encode(), 2, 3) is None
     assert numparse.parse_block(b"1, 2,3\n", 1, 3).tolist() == [[1.0, 2.0, 3.0]]
+
+
+# -- every path of parse_block against float() ------------------------------------------
+# Reference: Python's float() (correctly rounded); a block any cell of which float() refuses
+# (or a row of the wrong length) must give None, for the caller's line-by-line path.
+ANY_PLAIN = st.text("0123456789.-", min_size=0, max_size=20)  # valid or not
+
+
+def _want(cells: list[str], ncol: int) -> np.ndarray | None:
+    try:
+        return np.array([float(c) for c in cells]).reshape(-1, ncol)
+    except ValueError:
+        return None
+
+
+@pytest.mark.parametrize("path", ["cell by cell", "pandas", "vectorised"])
+@settings(max_examples=150, deadline=None)
+@given(cells=st.lists(plain_decimal() | ANY_PLAIN, min_size=3, max_size=60))
+def test_each_path_reads_cells_as_float_does(path, cells):
+    cells = cells[: len(cells) // 3 * 3]
+    if not cells:
+        return
+    block = "".join(",".join(cells[i:i + 3]) + "\n" for i in range(0, len(cells), 3)).encode()
+    few, library = {"cell by cell": (10**6, 10**6), "pandas": (0, 1),
+                    "vectorised": (0, 10**6)}[path]
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(numparse, "_FEW_LINES", few)
+        mp.setattr(numparse, "_LIBRARY_LINES", library)
+        got = numparse.parse_block(block, block.count(b"\n"), 3)
+    want = _want(cells, 3)
+    if want is None:
+        assert got is None
+    else:
+        assert got is not None and np.array_equal(got.view(np.int64), want.view(np.int64))
+
+
+@pytest.mark.parametrize("few, library", [(10**6, 10**6), (0, 1)])
+def test_rows_of_the_wrong_length_are_refused_by_every_path(few, library):
+    # Same comma count as three rows of three cells, but one short row and one long.
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(numparse, "_FEW_LINES", few)
+        mp.setattr(numparse, "_LIBRARY_LINES", library)
+        assert numparse.parse_block(b"1,2\n3,4,5\n6,7,8,9\n", 3, 3) is None
+        assert numparse.parse_block(b"1,2,3\n4,5,6\n", 2, 3).tolist() == [[1, 2, 3], [4, 5, 6]]
+
+
+def test_a_large_plain_block_takes_the_library_path_and_keeps_every_bit():
+    rng = np.random.default_rng(3)
+    values = np.round(rng.normal(0, 1e4, (numparse._LIBRARY_LINES + 7, 3)), 6)
+    cells = [[f"{v:.6f}" for v in row] for row in values]
+    block = "".join(",".join(r) + "\n" for r in cells).encode()
+    with pytest.MonkeyPatch.context() as mp:  # the own parser must not be reached
+        mp.setattr(numparse, "_plain_decimals", lambda *a: pytest.fail("own parser used"))
+        got = numparse.parse_block(block, len(cells), 3)
+    want = np.array([[float(c) for c in r] for r in cells])
+    assert got is not None and np.array_equal(got.view(np.int64), want.view(np.int64))

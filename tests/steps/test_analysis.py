@@ -114,3 +114,23 @@ def test_kept_windows_hold_each_steps_samples(reference):
         # The window's samples are the stream's own samples at those times.
         i = np.searchsorted(t, w.t)
         assert np.array_equal(y[i], w.feedback) and np.array_equal(sp[i], w.setpoint)
+
+
+def test_a_window_closed_as_settled_keeps_the_measurement_of_its_own_samples():
+    # The detector measured the window to close it; the analysis reuses that measurement,
+    # which must be what measuring the window afresh gives (same samples, same settings).
+    from livestep.steps.measure import measure_step
+
+    t, sp, y = session()
+    res = list(analyze_chunks([SampleChunk(t=t, setpoint=sp, feedback=y)],
+                              AnalysisSettings(keep_windows=True)))
+    settled = [r for r in res if r.end_reason == "settled"]
+    assert len(settled) >= 3
+    for r in settled:
+        w = r.window
+        assert w.measured is not None
+        assert r.metrics is w.measured[1]
+        fresh = measure_step(w.t, w.feedback, w.i_step, setpoint=w.setpoint,
+                             setpoint_before=w.setpoint_before,
+                             setpoint_after=w.setpoint_after)
+        assert fresh == r.metrics
