@@ -14,8 +14,9 @@ import numpy as np
 
 from livestep.decode.numparse import is_number
 
-__all__ = ["COMMENT", "cut_column", "cut_column_lines", "drop_long_lines", "find_pairs",
-           "is_comment", "is_garbage", "is_name", "looks_like_data", "numeric_cells"]
+__all__ = ["COMMENT", "COMMENT_START", "TEXT_START", "cut_column", "cut_column_lines",
+           "drop_long_lines", "find_pairs", "is_comment", "is_garbage", "is_name",
+           "looks_like_data", "numeric_cells", "split_off_lines"]
 
 COMMENT = b"#"
 _SEPARATORS = bytes.maketrans(b",;\t", b"   ")
@@ -100,6 +101,43 @@ def drop_long_lines(block: bytes, max_line: int) -> tuple[bytes, int]:
     for a, e in zip(starts[long].tolist(), ends[long].tolist(), strict=True):
         keep[a:e + 1] = False
     return b[keep].tobytes(), int(long.sum())
+
+
+def _first_bytes(chars: bytes) -> np.ndarray:
+    table = np.zeros(256, dtype=bool)
+    table[np.frombuffer(chars, dtype=np.uint8)] = True
+    return table
+
+
+#: Lines that start with ``#`` (a recording's comment and note lines).
+COMMENT_START = _first_bytes(COMMENT)
+#: Lines that start with ``#`` or an ASCII letter: never a data line of a delimited stream
+#: (a comment, a ``name=value`` note, a log line, the header again; "nan" is checked).
+TEXT_START = _first_bytes(COMMENT + bytes(range(65, 91)) + bytes(range(97, 123)))
+
+
+def split_off_lines(block: bytes, first: np.ndarray) -> tuple[bytes, list[tuple[int, bytes]]]:
+    """Cut the lines whose first byte is marked in ``first`` (a 256-entry table) out of
+    ``block`` (whole lines, each ending in a newline): (the rest, in one piece, and each line
+    cut, without its newline, with the number of lines of the rest before it). So a block
+    of data with a comment or a note every thousand lines is still parsed in one pass;
+    the caller handles the lines cut in their place (by that count)."""
+    b = np.frombuffer(block, dtype=np.uint8)
+    ends = np.flatnonzero(b == 10)
+    starts = np.empty_like(ends)
+    starts[:1] = 0
+    starts[1:] = ends[:-1] + 1
+    marked = np.flatnonzero(first[b[starts[starts < b.size]]])
+    if marked.size == 0:
+        return block, []
+    pieces, cut, at = [], [], 0
+    for n_before, k in enumerate(marked.tolist()):
+        a, e = int(starts[k]), int(ends[k])
+        pieces.append(block[at:a])
+        cut.append((k - n_before, block[a:e]))
+        at = e + 1
+    pieces.append(block[at:])
+    return b"".join(pieces), cut
 
 
 def cut_column(block: bytes, index: int, ncol: int,

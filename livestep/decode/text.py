@@ -50,12 +50,14 @@ from livestep.decode.layout import (
     split,
 )
 from livestep.decode.lines import (
+    TEXT_START,
     cut_column,
     drop_long_lines,
     find_pairs,
     is_comment,
     is_garbage,
     looks_like_data,
+    split_off_lines,
 )
 from livestep.decode.numparse import is_number, parse_block
 from livestep.decode.timebase import ClockSettings, Timebase
@@ -70,6 +72,10 @@ from livestep.steps.tags import (
 )
 
 __all__ = ["TextDecoder", "TextFormat", "describe"]
+
+#: A line cut from a block of rows: (data rows before it, order among events at the same
+#: place (a row's note cell first), kind, the line or cell).
+_Event = tuple[int, int, str, bytes]
 
 DELIMITERS = {"comma": ",", "tab": "\t", "semicolon": ";", "space": " "}
 _DETECT_LINES = 8
@@ -265,8 +271,10 @@ class TextDecoder:
         ncol = len(self.columns)
         if not self._pairs and ncol:
             fast = self._parse_fast(block, ncol)
+            if fast is None:  # comments, notes or log lines among the data?
+                fast = self._parse_around_text(block, ncol)
             if fast is not None:
-                return self._emit(fast)
+                return self._emit(*fast)
         out: list[SampleChunk] = []
         rows: list[list[float]] = []
 
@@ -320,12 +328,65 @@ class TextDecoder:
             return
         self._not_data(line)
 
-    def _parse_fast(self, block: bytes, ncol: int) -> NDArray[np.float64] | None:
-        delim = self._delim or b","
+    def _parse_fast(self, block: bytes, ncol: int) -> tuple[NDArray[np.float64],
+                                                           list[_Event]] | None:
+        """The block's rows in one pass, and its note cells as events (see :meth:`_emit`);
+        ``None`` when a line is not a data row."""
+        events: list[_Event] = []
         if self._note_col is not None:
             block, cells = cut_column(block, self._note_col, self._ncells, 0)
-            if cells:
+            events = [(k + 1, 0, "cell", text.encode()) for k, text in cells]
+        data = self._parse_rows(block, ncol)
+        return None if data is None else (data, events)
+
+    def _parse_around_text(self, block: bytes, ncol: int) -> tuple[NDArray[np.float64],
+                                                                  list[_Event]] | None:
+        """A block of data rows with comment, note, header or log lines among them: those
+        lines cut out (:func:`~livestep.decode.lines.split_off_lines`) and handled in their
+        place as events, the rows parsed in one pass, so such lines cost no more than data
+        lines. ``None`` (the caller goes line by line) when a line cut might be data or
+        changes the time base (a segment marker)."""
+        rest, lines = split_off_lines(block, TEXT_START)
+        if not lines:
+            return None
+        events: list[_Event] = []
+        for before, raw in lines:
+            line = raw.strip()
+            if line.startswith(b"# segment"):
                 return None
+            if line[:1] == b"#":
+                events.append((before, 1, "comment", line))
+            elif line == self._header_line:
+                continue
+            elif self._note_col is not None or looks_like_data(line) or all(
+                    is_number(c) for c in split(line, self._delim or b",")):
+                return None
+            else:
+                events.append((before, 1, "text", line))
+        parsed = self._parse_fast(rest, ncol) if rest else (np.empty((0, ncol)), [])
+        if parsed is None:
+            return None
+        data, cells = parsed
+        return data, sorted(cells + events, key=lambda e: (e[0], e[1]))
+
+    def _event(self, kind: str, payload: bytes) -> None:
+        """One line cut from a block, handled as the line-by-line path would."""
+        if kind == "comment":
+            self._comment(payload)
+            return
+        text = payload.decode("utf-8", "replace")
+        if kind == "cell":
+            self._stamp_note(*(parse_note(text) or ("note", text)))
+            return
+        notes = self._note(payload)
+        if notes is None:
+            self._not_data(payload)
+            return
+        for name, value in notes:
+            self._stamp_note(name, value)
+
+    def _parse_rows(self, block: bytes, ncol: int) -> NDArray[np.float64] | None:
+        delim = self._delim or b","
         if delim == b" " or delim == b"\t":
             block = _SPACES.sub(b",", block).replace(b",\n", b"\n").replace(b"\n,", b"\n")
             if block.startswith(b","):
@@ -402,25 +463,51 @@ class TextDecoder:
         self.logs.append(clean_text(text))
         return None
 
-    def _emit(self, data: NDArray[np.float64]) -> list[SampleChunk]:
+    def _emit(self, data: NDArray[np.float64],
+              events: list[_Event] | None = None) -> list[SampleChunk]:
+        """Rows to stamped samples; then each event (a line that stood among the rows: a
+        comment, a note, a log line, a note cell), handled as if the rows before it had just
+        been decoded: a note takes the time of the last sample before it."""
+        chunks, kept, t = self._stamp(data, want_rows=bool(events))
+        for before, _, kind, payload in events or ():
+            c = int(np.searchsorted(kept, before))
+            if c:
+                self._advance(t, c)
+            self._event(kind, payload)
+        if t.size:
+            self._advance(t, t.size)
+        return chunks
+
+    def _advance(self, t: NDArray[np.float64], n: int) -> None:
+        """The first ``n`` samples of ``t`` are decoded: notes waiting for a first sample
+        take its time, and later notes the time of the n-th."""
+        if self._unstamped:
+            first = float(t[0])
+            self._notes += [Note(first, n, v) for n, v in self._unstamped.items()]
+            self._unstamped = {}
+        self._last_t = float(t[n - 1])
+
+    def _stamp(self, data: NDArray[np.float64], want_rows: bool = False
+               ) -> tuple[list[SampleChunk], NDArray[np.intp], NDArray[np.float64]]:
+        """(the chunks of the valid rows, stamped; the indices of the rows kept, when
+        ``want_rows``; their times)."""
+        none = (np.empty(0, dtype=np.intp), np.empty(0))
         if data.shape[0] == 0:
-            return []
+            return [], *none
         ti, fi, si = self._roles  # type: ignore[misc]
         roles = [i for i in (ti, fi, si) if i is not None]
         finite = np.isfinite(data[:, roles]).all(axis=1)
+        rows = np.arange(data.shape[0]) if want_rows else none[0]
         if not finite.all():
             self.counters.bad["nan"] += int((~finite).sum())
             data = data[finite]
+            rows = rows[finite] if want_rows else rows
         if data.shape[0] == 0:
-            return []
+            return [], *none
         stamped = self.timebase.stamp(data[:, ti] if ti is not None else None, data.shape[0])
         data = data[stamped.keep]
-        if stamped.t.size:
-            if self._unstamped:
-                first = float(stamped.t[0])
-                self._notes += [Note(first, n, v) for n, v in self._unstamped.items()]
-                self._unstamped = {}
-            self._last_t = float(stamped.t[-1])
+        if want_rows:
+            rows = rows[stamped.keep]
         self.counters.samples += data.shape[0]
         bounds = [0, *stamped.segment_starts, data.shape[0]]
         first_segment = self.timebase.segment - len(stamped.segment_starts)
@@ -434,7 +521,7 @@ class TextDecoder:
                 setpoint=np.ascontiguousarray(data[a:b, si]) if si is not None else None,
                 extras={n: np.ascontiguousarray(data[a:b, i]) for n, i in self._extra},
                 segment=first_segment + k))
-        return out
+        return out, rows, stamped.t
 
 
 def describe(fmt: TextDecoder) -> str:

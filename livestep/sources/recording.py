@@ -31,7 +31,7 @@ from pathlib import Path
 
 import numpy as np
 
-from livestep.decode.lines import cut_column, cut_column_lines
+from livestep.decode.lines import COMMENT_START, cut_column, cut_column_lines, split_off_lines
 from livestep.decode.numparse import is_number, parse_block
 from livestep.errors import InputError
 from livestep.sources.files import READ_ERRORS, open_file, read_error
@@ -325,6 +325,14 @@ class RecordingReader:
             nlines = linenos.size
             if nlines == 0:
                 return None
+        if b"#" in block:  # comment and note lines out, so the rest parses in one pass
+            block, comments = split_off_lines(block, COMMENT_START)
+            if comments:
+                self._comments(comments)
+                linenos = np.delete(linenos, [n + j for j, (n, _) in enumerate(comments)])
+                nlines = linenos.size
+                if nlines == 0:
+                    return None
         cells: list[tuple[int, str]] = []
         if self._ni is not None:
             block, found = cut_column(block, self._ni, len(self.header), 0)
@@ -368,6 +376,14 @@ class RecordingReader:
             setpoint=np.ascontiguousarray(data[:, self._si]) if self._si is not None else None,
             extras={n: np.ascontiguousarray(data[:, i])
                     for n, i in zip(self.extra_names, self._extra_idx, strict=True)})
+
+    def _comments(self, lines: list[tuple[int, bytes]]) -> None:
+        """``#`` lines among the data: not rows; a recorded note is kept."""
+        for _, raw in lines:
+            self.stats.rows -= 1
+            note = parse_recorded_note(raw.decode("utf-8", "replace").strip())
+            if note is not None:
+                self._add_note(note)
 
     def _parse_slow(self, block: bytes,
                     linenos: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

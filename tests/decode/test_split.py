@@ -239,3 +239,65 @@ def test_auto_detection_is_a_function_of_the_bytes_long_run(noise, sizes, prefix
     make = lambda: make_decoder("auto", binary_clock=US, clock=US)  # noqa: E731
     assert run(make, data, sizes) == run(make, data)
     assert run(make, data, [1] * len(data)) == run(make, data)
+
+
+# -- lines among the data cost no more than data lines (issue 16) ------------------------
+# Reference: the decoder's line-by-line path, which handles every line in turn; the fast
+# path cuts comment, note, header and log lines out of a block, parses the rows in one
+# pass and handles the lines cut in their place. Both must give the same of everything.
+OTHER_LINES = [b"# a comment", b"# note: 1.5 gains=B", b"kp=2.5 ki=0.1", b"gains=C",
+               b"WARN: following error", b"t,setpoint,feedback", b"nan,1,2", b"1,2",
+               b"Booting", b"# segment: 3", b"1,nan,0.5"]
+
+
+@st.composite
+def stream_with_lines(draw: st.DrawFn) -> bytes:
+    out = [b"t,setpoint,feedback\n"]
+    k = 0
+    for _ in range(draw(st.integers(1, 12))):
+        for _ in range(draw(st.integers(0, 80))):
+            out.append(b"%d,%d,%.3f\n" % (1000 + 500 * k, k // 40, 0.01 * k))
+            k += 1
+        out.append(draw(st.sampled_from(OTHER_LINES)) + b"\n")
+    return b"".join(out)
+
+
+def _line_by_line(monkeypatch_context, data: bytes, sizes: list[int] | None) -> dict:
+    with monkeypatch_context() as mp:
+        mp.setattr(TextDecoder, "_parse_around_text", lambda self, block, ncol: None)
+        return run(text_decoder, data, sizes)
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(data=stream_with_lines(), read=st.sampled_from([None, 256, 4096]))
+def test_lines_among_the_data_decode_as_line_by_line(data, read):
+    sizes = None if read is None else [read] * (len(data) // read)
+    assert run(text_decoder, data, sizes) == _line_by_line(pytest.MonkeyPatch.context, data,
+                                                           sizes)
+
+
+def test_the_fixed_stream_decodes_as_line_by_line():
+    assert run(text_decoder, TEXT) == _line_by_line(pytest.MonkeyPatch.context, TEXT, None)
+    sizes = [7] * (len(TEXT) // 7)
+    assert run(text_decoder, TEXT, sizes) == _line_by_line(pytest.MonkeyPatch.context, TEXT,
+                                                           sizes)
+
+
+def test_a_note_among_the_rows_takes_the_time_of_the_row_before_it():
+    # By hand: once the format is known (8 data lines), a note after the row at device time
+    # 6500 us (5.5 ms after the first row, the time origin) is stamped 5.5 ms, in a block
+    # whose rows are parsed in one pass (the fast path, counted).
+    head = b"t,setpoint,feedback\n" + b"".join(ROWS[:10])
+    data = head + b"".join(ROWS[10:12]) + b"gains=B\n" + b"".join(ROWS[12:40])
+    real, taken = TextDecoder._parse_around_text, []
+
+    def spy(self, block, ncol):
+        out = real(self, block, ncol)
+        taken.append(out is not None)
+        return out
+
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(TextDecoder, "_parse_around_text", spy)
+        out = run(text_decoder, data, [len(head)])
+    assert taken and all(taken)
+    assert [t for t, n, _ in out["notes"] if n == "gains"] == [pytest.approx(5.5e-3)]
