@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import io
 import warnings
+from itertools import repeat
 
 import numpy as np
 
@@ -73,14 +74,14 @@ def _cell_by_cell(block: bytes, nlines: int, ncol: int) -> np.ndarray | None:
     of cells or a cell is not a number (``1_000``, which ``float()`` reads, included)."""
     if b"_" in block:
         return None
-    lines = block.split(b"\n")
+    lines = block[:-1].split(b"\n")
+    if set(map(len, map(bytes.split, lines, repeat(b",", nlines)))) != {ncol}:
+        return None
     try:
-        rows = [[float(c) for c in ln.split(b",")] for ln in lines[:nlines]]
+        values = list(map(float, b",".join(lines).split(b",")))
     except ValueError:
         return None
-    if any(len(r) != ncol for r in rows):
-        return None
-    return np.array(rows, dtype=np.float64).reshape(nlines, ncol)
+    return np.array(values, dtype=np.float64).reshape(nlines, ncol)
 
 
 def _library(block: bytes, nlines: int, ncol: int) -> np.ndarray | None:

@@ -73,6 +73,7 @@ from livestep.steps.tags import (
 
 __all__ = ["TextDecoder", "TextFormat", "describe"]
 
+_NO_ROWS = (np.empty(0, dtype=np.intp), np.empty(0))
 #: A line cut from a block of rows: (data rows before it, order among events at the same
 #: place (a row's note cell first), kind, the line or cell).
 _Event = tuple[int, int, str, bytes]
@@ -109,6 +110,7 @@ class TextDecoder:
         self._pairs = False
         self._roles: tuple[int | None, int, int | None] | None = None
         self._extra: list[tuple[str, int]] = []
+        self._role_list: list[int] | None = None
         self._header_line: bytes | None = None
         self._note_col: int | None = None  # index of a note column among the cells
         self._ncells = 0  # cells per line, note column included
@@ -255,6 +257,7 @@ class TextDecoder:
         self._layout = layout
         self._pairs, self._delim, self.columns = layout.pairs, layout.delim, layout.columns
         self._roles, self._extra = layout.roles, layout.extra
+        self._role_list = None
         self._header_line, self._note_col = layout.header_line, layout.note_col
         self._ncells = layout.ncells
         self.decision = layout.decision
@@ -448,7 +451,9 @@ class TextDecoder:
 
     def _role_indices(self) -> list[int]:
         assert self._roles is not None
-        return [i for i in self._roles if i is not None]
+        if self._role_list is None:
+            self._role_list = [i for i in self._roles if i is not None]
+        return self._role_list
 
     def _not_data(self, line: bytes) -> None:
         try:
@@ -491,35 +496,38 @@ class TextDecoder:
                ) -> tuple[list[SampleChunk], NDArray[np.intp], NDArray[np.float64]]:
         """(the chunks of the valid rows, stamped; the indices of the rows kept, when
         ``want_rows``; their times)."""
-        none = (np.empty(0, dtype=np.intp), np.empty(0))
+        none = _NO_ROWS
         if data.shape[0] == 0:
             return [], *none
         ti, fi, si = self._roles  # type: ignore[misc]
-        roles = [i for i in (ti, fi, si) if i is not None]
-        finite = np.isfinite(data[:, roles]).all(axis=1)
+        roles = self._role_indices()
         rows = np.arange(data.shape[0]) if want_rows else none[0]
-        if not finite.all():
+        role_data = data if len(roles) == data.shape[1] else data[:, roles]
+        if not np.isfinite(role_data.sum()):  # one cheap test for the usual case
+            finite = np.isfinite(role_data).all(axis=1)
             self.counters.bad["nan"] += int((~finite).sum())
             data = data[finite]
             rows = rows[finite] if want_rows else rows
         if data.shape[0] == 0:
             return [], *none
         stamped = self.timebase.stamp(data[:, ti] if ti is not None else None, data.shape[0])
-        data = data[stamped.keep]
-        if want_rows:
-            rows = rows[stamped.keep]
+        if stamped.t.size != data.shape[0]:
+            data = data[stamped.keep]
+            if want_rows:
+                rows = rows[stamped.keep]
         self.counters.samples += data.shape[0]
         bounds = [0, *stamped.segment_starts, data.shape[0]]
         first_segment = self.timebase.segment - len(stamped.segment_starts)
+        cols = data.T.copy()  # each channel contiguous, in one copy
         out = []
         for k in range(len(bounds) - 1):
             a, b = bounds[k], bounds[k + 1]
             if a == b:
                 continue
             out.append(SampleChunk(
-                t=stamped.t[a:b], feedback=np.ascontiguousarray(data[a:b, fi]),
-                setpoint=np.ascontiguousarray(data[a:b, si]) if si is not None else None,
-                extras={n: np.ascontiguousarray(data[a:b, i]) for n, i in self._extra},
+                t=stamped.t[a:b], feedback=cols[fi, a:b],
+                setpoint=cols[si, a:b] if si is not None else None,
+                extras={n: cols[i, a:b] for n, i in self._extra},
                 segment=first_segment + k))
         return out, rows, stamped.t
 

@@ -107,6 +107,8 @@ class Timebase:
             self._last_t = float(t[-1]) if n else self._last_t
             return Stamped(t, np.ones(n, dtype=bool), [])
         raw = np.asarray(raw, dtype=float)
+        if self._period is not None:  # fixed: nothing below depends on the split
+            return self._stamp(raw)
         # Causal: until the median period is fixed, a backwards step is decided with the
         # period of the samples before it alone, so the result does not depend on how the
         # stream was split into reads (a forward step needs no period at all).
@@ -136,7 +138,9 @@ class Timebase:
         if raw.size == 0:
             return Stamped(raw, np.ones(0, dtype=bool), [])
         prev = self._last_raw if self._last_raw is not None else raw[0]
-        d = np.diff(raw, prepend=prev)
+        d = _diff_from(prev, raw)
+        if self._period is not None and self._last_raw is not None and d.min() > 0.0:
+            return self._stamp_increasing(raw)
         if self._last_raw is None:
             self._origin_raw = raw[0]
             self._origin_t = 0.0
@@ -184,6 +188,17 @@ class Timebase:
         self._last_t = float(t[-1]) if t.size else self._last_t
         return Stamped(t, keep, starts)
 
+    def _stamp_increasing(self, raw: NDArray[np.float64]) -> Stamped:
+        """:meth:`_stamp` in the usual case, with a fraction of its work (a small serial
+        read is a few samples, where each numpy call costs more than the samples): the
+        period fixed, the times increasing (no wrap, restart or repeat). The same
+        arithmetic, so the same seconds to the bit."""
+        t = self._origin_t + (raw + self._offset - self._origin_raw) * self._scale
+        d = _diff_from(self._last_t, t)
+        self.counters.gaps += int(np.count_nonzero(d > 1.5 * self._period))
+        self._last_raw, self._last_t = float(raw[-1]), float(t[-1])
+        return Stamped(t, np.ones(raw.size, dtype=bool), [])
+
     def _update_period(self, t: NDArray[np.float64], starts: list[int]) -> None:
         """The median period is fixed by the stream's first 64 sample intervals (so it does
         not depend on how the stream was split into reads); every interval over 1.5 times
@@ -209,3 +224,11 @@ class Timebase:
         if self._period is not None:
             return self._period
         return float(np.median(self._early)) if self._early.size else None
+
+
+def _diff_from(prev: float, x: NDArray[np.float64]) -> NDArray[np.float64]:
+    """``np.diff(x, prepend=prev)``, the same values at a fraction of the fixed cost."""
+    d = np.empty_like(x)
+    d[0] = x[0] - prev
+    np.subtract(x[1:], x[:-1], out=d[1:])
+    return d
