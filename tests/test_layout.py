@@ -114,6 +114,19 @@ def test_the_core_loads_no_io_or_ui_library() -> None:
     assert loaded.isdisjoint({"textual", "rich", "serial", "matplotlib"}), loaded
 
 
+def test_analyze_loads_no_plotting_library(tmp_path: Path) -> None:
+    # `analyze --json` and its tables must not pay for matplotlib (about 0.4 s of start-up):
+    # only the HTML report loads it.
+    code = ("import sys, json\n"
+            "from livestep.cli import main\n"
+            f"main(['analyze', '--json', {str(ROOT / 'fixtures' / 'belt-axis.csv')!r}])\n"
+            "print(json.dumps(sorted(sys.modules)), file=sys.stderr)")
+    err = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True, cwd=tmp_path).stderr
+    loaded = {m.split(".")[0] for m in json.loads(err.strip().splitlines()[-1])}
+    assert "matplotlib" not in loaded and "textual" not in loaded
+
+
 def test_modules_are_small_or_say_why() -> None:
     long = [p.name for p in PACKAGE.rglob("*.py")
             if len(p.read_text().splitlines()) > 420

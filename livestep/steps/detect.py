@@ -24,9 +24,8 @@ second-order transient is a small fraction of the band, so the final level read 
 window's tail is not biased by it) and does not creep there (a line fitted to that stretch
 moves by at most a quarter of the band: an integrator still pulling the error out keeps
 the window open). A loop that settles in 0.2 s is closed between 0.6 and 0.9 s after the
-step. The checkpoints are
-counted in samples and a checkpoint is only judged once no setpoint change can come
-before it, so the decision does not depend on chunk sizes either.
+step. The checkpoints are counted in samples and a checkpoint is only judged once no
+setpoint change can come before it, so the decision does not depend on chunk sizes either.
 
 Feedback mode (no setpoint column): a step starts at the first sample that
 leaves the noise band (8 sigma) around the held feedback level and stays away
@@ -93,8 +92,7 @@ class StepWindow:
     setpoint_before: float | None
     setpoint_after: float | None
     end_reason: str
-    #: A window closed as settled: the settings and the measurement of exactly these
-    #: samples that closed it, so the analysis need not measure them again.
+    #: Closed as settled: the settings and measurement of these samples that closed it.
     measured: tuple[MeasureSettings, StepMetrics] | None = field(
         default=None, compare=False, repr=False)
 
