@@ -166,8 +166,20 @@ def add_recording_options(p: argparse.ArgumentParser) -> None:
     cols.add_argument("--time-unit", default="s", choices=sorted(TIME_UNITS),
                       help="unit of the time column (default s)")
     add_analysis_options(p)
-    p.add_argument("--jobs", type=int, default=min(os.cpu_count() or 1, 4), metavar="N",
-                   help="worker processes measuring steps (default: the CPU count, at most 4)")
+    p.add_argument("--jobs", type=int, default=default_jobs(), metavar="N",
+                   help="worker processes measuring steps; 1: in this process (default:"
+                   f" {default_jobs()} on this machine, see the README's performance notes)")
+
+
+def default_jobs() -> int:
+    """Worker processes for offline analysis: 1 (in this process, beside the thread that
+    reads ahead) with 2 cores or fewer, where more workers cost time
+    (``tools/bench_analyze.py``); else one per core beyond those two, at most 4."""
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # not on every platform
+        cores = os.cpu_count() or 1
+    return 1 if cores <= 2 else min(cores - 2, 4)
 
 
 def parse_tag(text: str) -> tuple[str, str]:

@@ -122,6 +122,16 @@ def without_figures(*, t_step: float, direction: str, setpoint_before: float | N
         smoothing_samples=smoothing_samples, warnings=warnings)
 
 
+def line_slope(t: FloatArray, y: FloatArray) -> float:
+    """Slope of the least-squares straight line through (t, y), y's units per second:
+    sum((t - mean t)(y - mean y)) / sum((t - mean t)^2); zero for fewer than 2 points."""
+    if t.size < 2:
+        return 0.0
+    tc = t - t.mean()
+    den = float(np.dot(tc, tc))
+    return float(np.dot(tc, y - y.mean())) / den if den > 0.0 else 0.0
+
+
 def robust_level(x: FloatArray) -> float:
     """Robust level of a stretch of samples: the 10 % trimmed mean (same units as ``x``),
     the mean of what is left after cutting the lowest and highest 10 % of the samples."""
@@ -190,13 +200,16 @@ def measure_step(
     setpoint_after: float | None = None,
     pre_start: int = 0,
     settings: MeasureSettings = MeasureSettings(),
+    level: tuple[float, float] | None = None,
 ) -> StepMetrics:
     """Measure one step response.
 
     ``t`` (seconds, strictly increasing) and ``feedback`` cover the stretch used
     for the initial level, ``[pre_start, i_step)``, then the step window
     ``[i_step, end)``; ``t[i_step]`` is the step instant. ``setpoint`` (same
-    length) is needed for the error integrals.
+    length) is needed for the error integrals. ``level``: the initial level and noise
+    sigma of that stretch, when already known (:func:`robust_level`, :func:`noise_sigma`
+    of it), so a window measured again as it grows does not compute them again.
     """
     warnings: list[str] = []
     t = np.asarray(t, dtype=float)
@@ -206,8 +219,8 @@ def measure_step(
     if pre.size < 3:
         warnings.append("fewer than 3 samples before the step: initial level is uncertain")
         pre = y[max(0, i_step - 3): i_step + 1]
-    initial = robust_level(pre)
-    sigma = noise_sigma(pre)
+        level = None
+    initial, sigma = level if level is not None else (robust_level(pre), noise_sigma(pre))
 
     post_t = t[i_step:]
     dt = float(np.median(np.diff(post_t))) if post_t.size > 1 else 0.0
@@ -322,7 +335,7 @@ def measure_step(
         drift = 0.0
         if np.count_nonzero(sel) >= 10:
             tt = post_t[sel] - post_t[sel][0]
-            drift = abs(float(np.polyfit(tt, y[i_step:][sel], 1)[0])) * float(tt[-1])
+            drift = abs(line_slope(tt, y[i_step:][sel])) * float(tt[-1])
         if tg[-1] - settle_t >= hold and drift <= band * abs(amp):
             settled, settling_time = True, settle_t - t_step
     if not settled:

@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
-from livestep.steps.measure import MeasureSettings, StepMetrics, measure_step
+from livestep.steps.measure import MeasureSettings, StepMetrics, line_slope, measure_step
 
 __all__ = ["confirmed_settled"]
 
@@ -55,7 +55,7 @@ def confirmed_settled(t: FloatArray, feedback: FloatArray, setpoint: FloatArray 
     try:
         m = measure_step(t, feedback, i_step, setpoint=setpoint,
                          setpoint_before=setpoint_before, setpoint_after=setpoint_after,
-                         settings=settings)
+                         settings=settings, level=level)
     except Exception:  # noqa: BLE001 - a bug there must not end the stream: not settled
         return None, wait
     if not m.settled or m.settling_time is None or m.rise_time is None:
@@ -72,4 +72,4 @@ def _drift(t: FloatArray, y: FloatArray) -> float:
     """How far a straight line fitted to ``y`` over ``t`` moves across it (y's units)."""
     if t.size < 3:
         return 0.0
-    return abs(float(np.polyfit(t - t[0], y, 1)[0])) * float(t[-1] - t[0])
+    return abs(line_slope(t, y)) * float(t[-1] - t[0])
