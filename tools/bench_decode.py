@@ -18,6 +18,8 @@ Sections (add one: write a function returning ``Row``s, add it to ``SECTIONS``):
   chain, ``binascii.crc_hqx``, ``struct.unpack``). Target: at least 1 M frames/s.
 - ``text``: :class:`livestep.decode.text.TextDecoder` on ``t_us,setpoint,feedback`` lines
   vs a per-line ``split`` + ``float`` loop. Target: at least 2 M lines/s.
+- ``small``: the same decoder fed 256-byte reads, where its fixed cost per read counts.
+  Target: at least 310 k lines/s, 10 times a USB full-speed link (~31 k lines/s).
 """
 
 from __future__ import annotations
@@ -216,10 +218,42 @@ def bench_text(args: argparse.Namespace) -> list[Row]:
     ]
 
 
+# -- section: small reads -------------------------------------------------------------------
+USB_FULL_SPEED_LINES = 31_000  # ~33-byte lines/s a USB full-speed CDC link carries in practice
+
+
+def bench_small(args: argparse.Namespace) -> list[Row]:
+    """The text decoder fed 256-byte reads (a slow link, read as bytes arrive): its fixed
+    cost per read dominates. Target: at least 10 times a USB full-speed link's lines/s."""
+    from livestep.decode.text import TextDecoder
+    from livestep.decode.timebase import ClockSettings
+
+    n = min(args.frames, 200_000)
+    stream = text_stream(n)
+
+    def livestep() -> int:
+        dec = TextDecoder(clock=ClockSettings(unit="us"))
+        got = sum(len(c) for data in reads(stream, 256) for c in dec.feed(bytes(data)))
+        return got + sum(len(c) for c in dec.flush())
+
+    seconds, decoded = best_of(args.repeat, livestep)
+    base_seconds, base_decoded = best_of(args.repeat, lambda: naive_text(reads(stream, 256)))
+    rate = decoded / seconds
+    target = 10 * USB_FULL_SPEED_LINES
+    return [
+        Row("small", "livestep TextDecoder", decoded, len(stream), seconds,
+            note=f"256 B reads, {seconds / (len(stream) / 256) * 1e6:.1f} us a read;"
+                 f" target >= {target:,} lines/s: {'met' if rate >= target else 'NOT met'}"),
+        Row("small", "naive split + float loop", base_decoded, len(stream), base_seconds,
+            baseline=True, note="256 B reads"),
+    ]
+
+
 # -- report ----------------------------------------------------------------------------------
 SECTIONS: dict[str, Callable[[argparse.Namespace], list[Row]]] = {
     "binary": bench_binary,
     "text": bench_text,
+    "small": bench_small,
 }
 
 
