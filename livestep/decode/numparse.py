@@ -4,7 +4,7 @@ Shared by the recording reader and the text stream decoder. Every path gives the
 Python's ``float()`` gives for the cell's text, bit for bit:
 
 - a few lines (a small serial read): ``float()`` on each cell, the cheapest per call;
-- a large block of plain decimals (digits, ``.``, ``-``): pandas' C CSV parser, about
+- a large block of plain decimals (digits, ``.``, ``-``) of a recording: pandas' C CSV parser, about
   four times our own vectorised parser on this machine (``tools/bench_decode.py``);
 - otherwise our vectorised plain-decimal parser, then numpy's general text parser
   (exponents, nan, signs);
@@ -33,15 +33,18 @@ def is_number(cell: bytes | str) -> bool:
     return True
 
 
-def parse_block(block: bytes, nlines: int, ncol: int) -> np.ndarray | None:
+def parse_block(block: bytes, nlines: int, ncol: int, *,
+                library: bool = False) -> np.ndarray | None:
     """Values of ``nlines`` complete lines of ``ncol`` comma-separated numbers each (every
     line ending in a newline, no ``\r``), shape (nlines, ncol); ``None`` when any line is
-    not exactly that (the caller then goes line by line)."""
+    not exactly that (the caller then goes line by line). ``library``: large blocks may go
+    to pandas (the recording reader; a live decoder does not, so a session never stalls
+    importing it)."""
     if nlines == 0 or b"\n\n" in block:
         return None
     if nlines <= _FEW_LINES:
         return _cell_by_cell(block, nlines, ncol)
-    if nlines >= _LIBRARY_LINES and not block.translate(None, _PLAIN_BYTES):
+    if library and nlines >= _LIBRARY_LINES and not block.translate(None, _PLAIN_BYTES):
         return _library(block, nlines, ncol)
     return _vectorised(block, nlines, ncol)
 

@@ -337,7 +337,7 @@ class RecordingReader:
         if self._ni is not None:
             block, found = cut_column(block, self._ni, len(self.header), 0)
             cells = [(int(linenos[k]), text) for k, text in found]
-        data = parse_block(block, nlines, ncol)
+        data = parse_block(block, nlines, ncol, library=True)
         if data is not None:
             lines = linenos
         else:

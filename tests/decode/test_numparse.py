@@ -145,7 +145,7 @@ def test_each_path_reads_cells_as_float_does(path, cells):
     with pytest.MonkeyPatch.context() as mp:
         mp.setattr(numparse, "_FEW_LINES", few)
         mp.setattr(numparse, "_LIBRARY_LINES", library)
-        got = numparse.parse_block(block, block.count(b"\n"), 3)
+        got = numparse.parse_block(block, block.count(b"\n"), 3, library=True)
     want = _want(cells, 3)
     if want is None:
         assert got is None
@@ -159,8 +159,9 @@ def test_rows_of_the_wrong_length_are_refused_by_every_path(few, library):
     with pytest.MonkeyPatch.context() as mp:
         mp.setattr(numparse, "_FEW_LINES", few)
         mp.setattr(numparse, "_LIBRARY_LINES", library)
-        assert numparse.parse_block(b"1,2\n3,4,5\n6,7,8,9\n", 3, 3) is None
-        assert numparse.parse_block(b"1,2,3\n4,5,6\n", 2, 3).tolist() == [[1, 2, 3], [4, 5, 6]]
+        assert numparse.parse_block(b"1,2\n3,4,5\n6,7,8,9\n", 3, 3, library=True) is None
+        assert numparse.parse_block(b"1,2,3\n4,5,6\n", 2, 3,
+                                    library=True).tolist() == [[1, 2, 3], [4, 5, 6]]
 
 
 def test_a_large_plain_block_takes_the_library_path_and_keeps_every_bit():
@@ -170,6 +171,24 @@ def test_a_large_plain_block_takes_the_library_path_and_keeps_every_bit():
     block = "".join(",".join(r) + "\n" for r in cells).encode()
     with pytest.MonkeyPatch.context() as mp:  # the own parser must not be reached
         mp.setattr(numparse, "_plain_decimals", lambda *a: pytest.fail("own parser used"))
-        got = numparse.parse_block(block, len(cells), 3)
+        got = numparse.parse_block(block, len(cells), 3, library=True)
     want = np.array([[float(c) for c in r] for r in cells])
     assert got is not None and np.array_equal(got.view(np.int64), want.view(np.int64))
+
+
+def test_the_live_decoder_never_imports_pandas():
+    # Importing pandas takes about half a second: a live session must not stall on it when
+    # a large read arrives (only the recording reader hands blocks to pandas).
+    import subprocess
+    import sys
+
+    code = ("import sys\n"
+            "from livestep.decode.text import TextDecoder\n"
+            "from livestep.decode.timebase import ClockSettings\n"
+            "rows = b''.join(b'%d,1.5,2.25\\n' % (1000 * k) for k in range(20000))\n"
+            "d = TextDecoder(clock=ClockSettings(unit='us'))\n"
+            "n = sum(len(c) for c in d.feed(b't,setpoint,feedback\\n' + rows))\n"
+            "print(n, 'pandas' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True).stdout.split()
+    assert out == ["20000", "False"]
