@@ -89,8 +89,18 @@ def analysis_document(source: str, samples: int, results: Sequence[StepResult],
 
 
 def write_json(doc: dict[str, Any], out: IO[str]) -> None:
-    json.dump(doc, out, indent=2, allow_nan=False)
-    out.write("\n")
+    """The document, indented, with each item of a list on one line of its own. Every item
+    is encoded in one call (the C encoder: ``json.dump`` with an indent encodes in Python,
+    about a second per thousand steps)."""
+    enc = json.JSONEncoder(allow_nan=False)
+    parts = []
+    for key, value in doc.items():
+        if isinstance(value, list) and value:
+            text = "[\n" + ",\n".join("    " + enc.encode(x) for x in value) + "\n  ]"
+        else:
+            text = json.dumps(value, indent=2, allow_nan=False).replace("\n", "\n  ")
+        parts.append(f"  {enc.encode(key)}: {text}")
+    out.write("{\n" + ",\n".join(parts) + "\n}\n")
 
 
 def _no_negative_zero(text: str) -> str:
