@@ -137,6 +137,9 @@ class Timebase:
     def _stamp(self, raw: NDArray[np.float64]) -> Stamped:
         if raw.size == 0:
             return Stamped(raw, np.ones(0, dtype=bool), [])
+        if self._period is not None and self._last_raw is not None:
+            if raw.size <= _FEW and _increasing(self._last_raw, rl := raw.tolist()):
+                return self._stamp_few(rl)
         prev = self._last_raw if self._last_raw is not None else raw[0]
         d = _diff_from(prev, raw)
         if self._period is not None and self._last_raw is not None and d.min() > 0.0:
@@ -199,6 +202,20 @@ class Timebase:
         self._last_raw, self._last_t = float(raw[-1]), float(t[-1])
         return Stamped(t, np.ones(raw.size, dtype=bool), [])
 
+    def _stamp_few(self, raw: list[float]) -> Stamped:
+        """:meth:`_stamp_increasing` for a few samples, in Python floats (the same IEEE
+        operations in the same order, so the same seconds), as a small read brings."""
+        o_t, off, o_r, sc = self._origin_t, self._offset, self._origin_raw, self._scale
+        t = [o_t + (x + off - o_r) * sc for x in raw]
+        prev, limit = self._last_t, 1.5 * self._period  # type: ignore[operator]
+        gaps = 0
+        for x in t:
+            gaps += x - prev > limit  # type: ignore[operator]
+            prev = x
+        self.counters.gaps += gaps
+        self._last_raw, self._last_t = raw[-1], t[-1]
+        return Stamped(np.array(t), np.ones(len(t), dtype=bool), [])
+
     def _update_period(self, t: NDArray[np.float64], starts: list[int]) -> None:
         """The median period is fixed by the stream's first 64 sample intervals (so it does
         not depend on how the stream was split into reads); every interval over 1.5 times
@@ -232,3 +249,15 @@ def _diff_from(prev: float, x: NDArray[np.float64]) -> NDArray[np.float64]:
     d[0] = x[0] - prev
     np.subtract(x[1:], x[:-1], out=d[1:])
     return d
+
+
+_FEW = 64  # samples up to which stamping in Python floats beats numpy's fixed costs
+
+
+def _increasing(prev: float, xs: list[float]) -> bool:
+    """Every value above the one before it (``prev`` before the first)."""
+    for x in xs:
+        if not x > prev:
+            return False
+        prev = x
+    return True
