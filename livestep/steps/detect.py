@@ -40,7 +40,7 @@ the time to move 8 sigma; a ramp of the feedback is taken as a jump.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import NDArray
@@ -93,6 +93,7 @@ class StepWindow:
     setpoint_before: float | None
     setpoint_after: float | None
     end_reason: str
+    extras: dict[str, FloatArray] = field(default_factory=dict)  # extra channels, same samples
 
     @property
     def t_step(self) -> float:
@@ -198,6 +199,11 @@ class StepDetector:
         if self._open is not None:
             self._close(self._buf.end, reason, out)
         return out
+
+    @property
+    def held(self) -> int:
+        """How many of the latest samples the detector still holds."""
+        return self._buf.size
 
     def open_instant(self) -> tuple[int, float] | None:
         """(global sample index of the step instant, seconds from it to the latest

@@ -1,0 +1,73 @@
+"""Extra channels (a controller output, a current, a force) carried beside the step
+detector, so each step window gets its stretch of them. Pure numpy.
+
+The detector sees time, feedback and setpoint only; :class:`ChannelBuffer` keeps the extra
+channels of the same samples, in step with it (both are fed every sample of a segment, and
+the buffer drops what the detector has dropped), and cuts a window's stretch out of them
+by the window's times. A stream without extra channels costs nothing: the buffer stays
+empty and windows keep their empty ``extras``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+
+import numpy as np
+from numpy.typing import NDArray
+
+__all__ = ["ChannelBuffer"]
+
+FloatArray = NDArray[np.float64]
+
+
+class ChannelBuffer:
+    """The extra channels of the recent samples, with their times (seconds).
+
+    The channel names are those of the first chunk that has any; a later chunk missing
+    one gives NaN for it, a new name is ignored."""
+
+    def __init__(self) -> None:
+        self.names: tuple[str, ...] = ()
+        self._data = np.empty((0, 0))
+        self._size = 0
+
+    def __bool__(self) -> bool:
+        return bool(self.names)
+
+    def append(self, t: FloatArray, extras: Mapping[str, FloatArray]) -> None:
+        """Add a chunk's samples (every chunk once the buffer has channels)."""
+        if not self.names:
+            if not extras:
+                return
+            self.names = tuple(extras)
+            self._data = np.empty((1 + len(self.names), max(1024, 2 * t.size)))
+        n = t.size
+        if self._size + n > self._data.shape[1]:
+            grown = np.empty((self._data.shape[0], max(2 * self._data.shape[1],
+                                                       self._size + n)))
+            grown[:, :self._size] = self._data[:, :self._size]
+            self._data = grown
+        cols = self._data[:, self._size:self._size + n]
+        cols[0] = t
+        for k, name in enumerate(self.names, start=1):
+            cols[k] = extras.get(name, np.nan)
+        self._size += n
+
+    def keep_last(self, count: int) -> None:
+        """Drop all but the last ``count`` samples (what the detector still holds)."""
+        drop = self._size - max(0, count)
+        if drop > 0 and self.names:
+            self._data[:, :self._size - drop] = self._data[:, drop:self._size]
+            self._size -= drop
+
+    def window(self, t: FloatArray) -> dict[str, FloatArray]:
+        """The channels at the window's samples ``t`` (a stretch of the samples appended,
+        in order), as copies; empty when there are none."""
+        if not self.names or t.size == 0:
+            return {}
+        times = self._data[0, :self._size]
+        a = int(np.searchsorted(times, t[0]))
+        b = a + t.size
+        if b > self._size or times[a] != t[0] or times[b - 1] != t[-1]:
+            return {}  # not held any more (cannot happen while in step with the detector)
+        return {name: self._data[k, a:b].copy() for k, name in enumerate(self.names, start=1)}
