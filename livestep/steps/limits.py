@@ -6,9 +6,14 @@ the error would ask for more: the response is then limited by the drive, not sha
 loop, so a linear model (and any design guidance read from it) does not hold for that
 step. :func:`limit_hold` finds the longest run of samples, between the step instant and
 the end of the rise, whose value stays within ``tolerance`` of the channel's maximum (or
-minimum) over the step, and reports it when it lasts at least ``min_samples`` samples.
-A smooth peak of an output that is not limited passes its extreme in a sample or two; an
-output clipped by the drive stays on it (common practice, no source).
+minimum) over the step, and reports it when it lasts at least ``min_samples`` samples. An
+extreme within 10 % of the span of where the channel ends (the median of the window's last
+tenth) is not a limit: an output that settles at its lowest value holds that value too.
+An output clipped by the controller is reported at exactly its limit value, sample after
+sample, while a smooth peak of an output that is not limited passes its extreme in a
+sample or two (common practice, no source): so the default tolerance is tight (1e-5 of the
+span, which single-precision frames and six-digit text keep). A measured channel at its
+limit (a current with noise on it) needs a tolerance of about its noise.
 """
 
 from __future__ import annotations
@@ -27,7 +32,7 @@ class LimitSettings:
     channel's span over the step (highest minus lowest value); ``min_samples``: the shortest
     run that counts as held."""
 
-    tolerance: float = 0.002
+    tolerance: float = 1e-5
     min_samples: int = 5
 
 
@@ -76,8 +81,12 @@ def limit_hold(t: ArrayLike, x: ArrayLike, i_step: int, rise_end: float | None, 
     stop = t.size if rise_end is None else int(np.searchsorted(t, rise_end, side="right"))
     rise = x[i_step:max(stop, i_step + 1)]
     tol = settings.tolerance * span
+    tail = after[ok][-max(settings.min_samples, after[ok].size // 10):]
+    final = float(np.median(tail))  # where the channel ends: a settled output is no limit
     best: tuple[int, int, float] = (0, 0, hi)
     for extreme in (hi, lo):
+        if abs(extreme - final) <= 0.1 * span:
+            continue
         start, length = _longest_run(np.abs(rise - extreme) <= tol)
         if length > best[1]:
             best = (start, length, extreme)

@@ -183,23 +183,24 @@ class LivestepApp(App[int]):
                 tooltip="this help: every key and symbol"),
         Binding("space", "pause", "pause",
                 tooltip="pause / resume (replay: playback; live: the view)"),
+        Binding("o", "overlay", "overlay", tooltip="overlay: the median step of each gain set;"
+                " again: the last 6 steps; again: one step"),
+        Binding("z", "zoom", "zoom", tooltip="the error zoomed around the settling band;"
+                " again: the step"),
+        Binding("g", "summary", "gain sets", tooltip="one row per gain set: means and verdict"
+                " counts, in the panel; again: the step"),
+        Binding("c", "channel", "channel", tooltip="plot the next extra channel (a drive's"
+                " output, such as force) under the response; after the last: none"),
+        Binding("s", "save", "report", tooltip="save an HTML report of the steps so far"),
+
+        Binding("m", "model", "model", tooltip="show / hide the fitted model over the data"),
+        Binding("n", "note", "note", tooltip="add a note (e.g. gains=B) tagging the next steps"),
         Binding("left,up", "older", "older", key_display="←/↑",
                 tooltip="show the previous step of the history"),
         Binding("right,down", "newer", "newer", key_display="→/↓",
                 tooltip="show the next step of the history"),
         Binding("end,l", "follow", "live", key_display="end/l",
                 tooltip="follow the stream: newest step, current samples"),
-        Binding("n", "note", "note", tooltip="add a note (e.g. gains=B) tagging the next steps"),
-        Binding("m", "model", "model", tooltip="show / hide the fitted model over the data"),
-        Binding("o", "overlay", "overlay", tooltip="overlay: the median step of each gain set;"
-                " again: the last 6 steps; again: one step"),
-        Binding("z", "zoom", "zoom", tooltip="the error zoomed around the settling band;"
-                " again: the step"),
-        Binding("c", "channel", "channel", tooltip="plot the next extra channel (a drive's"
-                " output, such as force) under the response; after the last: none"),
-        Binding("g", "summary", "gain sets", tooltip="one row per gain set: means and verdict"
-                " counts, in the panel; again: the step"),
-        Binding("s", "save", "report", tooltip="save an HTML report of the steps so far"),
         Binding("plus,equals_sign", "faster", "faster", key_display="+", show=False,
                 tooltip="replay: twice as fast"),
         Binding("minus", "slower", "slower", key_display="-", show=False,
@@ -321,8 +322,8 @@ class LivestepApp(App[int]):
         folder = self.report_folder
         with contextlib.suppress(ValueError):
             folder = folder.resolve().relative_to(Path.cwd())
-        return (f"{what}, {n} step{'s' * (n != 1)}: s report → {folder}/  o overlay"
-                "  g gain sets  q quit")
+        return (f"{what}, {n} step{'s' * (n != 1)}: q quit  o overlay  g gain sets"
+                f"  s report → {folder}/")
 
     def _entry(self, snap: Snapshot) -> StepEntry | None:
         if not snap.steps:
@@ -414,7 +415,8 @@ class LivestepApp(App[int]):
     # -- keys -------------------------------------------------------------------
     def say(self, text: str) -> None:
         self.message = text
-        self.query_one("#message", Static).update(Text(text, style="italic"), layout=False)
+        self.query_one("#message", Static).update(
+            Text(text, style="italic", no_wrap=True, overflow="ellipsis"), layout=False)
 
     def _select(self, index: int | None) -> None:
         self.selected = index

@@ -241,6 +241,7 @@ def step_panel(e: StepEntry | None, *, live: bool, narrow: bool = False,
     if tags:
         head.append("  " + tags, "italic")
     if narrow:
+        head.no_wrap, head.overflow = True, "ellipsis"  # one line: the panel is short
         return _narrow_panel(e, head)
     table = Table(box=None, pad_edge=False, padding=(0, 1), show_edge=False,
                   header_style="bold")
