@@ -70,11 +70,13 @@ def _plottable(e: StepEntry) -> bool:
 
 def representative(entries: Sequence[StepEntry]) -> StepEntry | None:
     """The group's median step by overshoot (the lower middle one for an even count), among
-    those whose samples are still in memory; ``None`` when none is."""
+    those whose samples are still in memory and, when there are such, whose drive was not at
+    its limit (a limited response says little about the gains); ``None`` when none is."""
     kept = sorted((e for e in entries if _plottable(e)),
                   key=lambda e: (np.nan_to_num(e.result.metrics.overshoot_pct, nan=0.0),
                                  e.result.index))
-    return kept[(len(kept) - 1) // 2] if kept else None
+    linear = [e for e in kept if e.result.limit is None] or kept  # a limited step: atypical
+    return linear[(len(linear) - 1) // 2] if kept else None
 
 
 def _series(entries: Sequence[StepEntry], mode: str) -> tuple[list[tuple[str, StepEntry]], str]:
