@@ -371,13 +371,14 @@ class Watch:
                 error_status=self._error_status, stream_format=self._format,
                 under_way=self._under_way)
 
-    def samples(self, since: float | None = None, count: int = 1 << 16) -> Samples:
+    def samples(self, since: float | None = None, count: int = 1 << 16, *,
+                extras: bool = False) -> Samples:
         """Copies of the recent samples: from device time ``since`` (seconds), or the
-        last ``count``."""
+        last ``count``; with ``extras``, the extra channels too."""
         with self._lock:
             d = self._ring.since(since) if since is not None else self._ring.last(count)
             x = None
-            if self._xring is not None:
+            if extras and self._xring is not None:
                 x = (self._xring.since(since) if since is not None
                      else self._xring.last(count))
         sp = None if np.isnan(d[1]).all() else d[1].copy()
@@ -391,8 +392,9 @@ class Watch:
         if self._xring is None:
             self._xnames = tuple(chunk.extras)
             self._xring = _Ring(self._ring.data.shape[1], rows=1 + len(self._xnames))
-        nan = np.full(len(chunk), np.nan)
-        self._xring.push([chunk.t, *(chunk.extras.get(n, nan) for n in self._xnames)])
+        x = chunk.extras
+        self._xring.push([chunk.t, *(x[n] if n in x else np.full(len(chunk), np.nan)
+                                     for n in self._xnames)])
 
     # -- analysis thread --------------------------------------------------------
     def _progress(self) -> float | None:

@@ -29,7 +29,8 @@ class ChannelBuffer:
     def __init__(self) -> None:
         self.names: tuple[str, ...] = ()
         self._data = np.empty((0, 0))
-        self._size = 0
+        self._start = 0  # the first kept sample's column
+        self._size = 0  # samples kept
 
     def __bool__(self) -> bool:
         return bool(self.names)
@@ -42,12 +43,15 @@ class ChannelBuffer:
             self.names = tuple(extras)
             self._data = np.empty((1 + len(self.names), max(1024, 2 * t.size)))
         n = t.size
-        if self._size + n > self._data.shape[1]:
-            grown = np.empty((self._data.shape[0], max(2 * self._data.shape[1],
-                                                       self._size + n)))
-            grown[:, :self._size] = self._data[:, :self._size]
-            self._data = grown
-        cols = self._data[:, self._size:self._size + n]
+        if self._start + self._size + n > self._data.shape[1]:  # compact, or grow
+            width = self._data.shape[1]
+            if self._size + n > width // 2:
+                width = max(2 * width, 2 * (self._size + n))
+            moved = np.empty((self._data.shape[0], width))
+            moved[:, :self._size] = self._data[:, self._start:self._start + self._size]
+            self._data, self._start = moved, 0
+        end = self._start + self._size
+        cols = self._data[:, end:end + n]
         cols[0] = t
         for k, name in enumerate(self.names, start=1):
             cols[k] = extras.get(name, np.nan)
@@ -56,8 +60,8 @@ class ChannelBuffer:
     def keep_last(self, count: int) -> None:
         """Drop all but the last ``count`` samples (what the detector still holds)."""
         drop = self._size - max(0, count)
-        if drop > 0 and self.names:
-            self._data[:, :self._size - drop] = self._data[:, drop:self._size]
+        if drop > 0:  # no copy: the start moves (appending compacts now and then)
+            self._start += drop
             self._size -= drop
 
     def window(self, t: FloatArray) -> dict[str, FloatArray]:
@@ -65,9 +69,9 @@ class ChannelBuffer:
         in order), as copies; empty when there are none."""
         if not self.names or t.size == 0:
             return {}
-        times = self._data[0, :self._size]
-        a = int(np.searchsorted(times, t[0]))
+        held = self._data[:, self._start:self._start + self._size]
+        a = int(np.searchsorted(held[0], t[0]))
         b = a + t.size
-        if b > self._size or times[a] != t[0] or times[b - 1] != t[-1]:
+        if b > self._size or held[0, a] != t[0] or held[0, b - 1] != t[-1]:
             return {}  # not held any more (cannot happen while in step with the detector)
-        return {name: self._data[k, a:b].copy() for k, name in enumerate(self.names, start=1)}
+        return {name: held[k, a:b].copy() for k, name in enumerate(self.names, start=1)}

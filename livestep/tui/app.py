@@ -401,7 +401,7 @@ class LivestepApp(App[int]):
         if entry is not None:
             start = max(entry.result.metrics.t_step - 0.1 * (end - entry.result.metrics.t_step),
                         end - self.LIVE_SPAN)
-        samples = self.link.samples(since=start)
+        samples = self.link.samples(since=start, extras=self.channel is not None)
         main = views.step_plot(samples, entry, measure, x_range=(start, end),
                                model=self.show_model, narrow=self.narrow)
         lower = None
