@@ -4,7 +4,8 @@
 transfer axis, :class:`~livestep.bench.plants.AxisPlant`) on a pseudo-terminal, connects to
 it through pyserial exactly as to a real port (:func:`livestep.live.run.run_live`), and sends the
 built-in step plan (:func:`demo_plan`: two steps up and down under each of three gain sets,
-the derivative gain raised each time) with a :class:`~livestep.live.plan_run.PlanRunner`. Each
+the derivative gain raised each time, and under the last set one long move that drives the
+axis into its force limit) with a :class:`~livestep.live.plan_run.PlanRunner`. Each
 step's result is printed as it is measured (by default), and the session is recorded as any
 live session is. It ends by itself when the plan is done.
 
@@ -19,6 +20,7 @@ from __future__ import annotations
 import sys
 import threading
 from collections.abc import Sequence
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
@@ -45,13 +47,17 @@ DEMO_PLAN: dict[str, Any] = {
     "repeats": 2,
     "rest": 0.0,
     "lead_in": 0.5,
-    "limits": {"min": -1.0, "max": 6.0, "max_step": 5.0},
+    "limits": {"min": -1.0, "max": 41.0, "max_step": 40.0},
     "commands": {"setpoint": "sp {value:g}", "gains": "gains kp={kp:g} ki={ki:g} kd={kd:g}",
                  "safe": "sp 0"},
     "gains": [{"name": "soft", "kp": 20.0, "ki": 60.0, "kd": 0.1},
               {"name": "medium", "kp": 20.0, "ki": 60.0, "kd": 0.2},
               {"name": "firm", "kp": 20.0, "ki": 60.0, "kd": 0.3}],
 }
+#: The long move sent at the end of the last gain set's pass (mm, from the rest level 0 and
+#: back): the position error asks for more force than the drive's 250 N, so the force
+#: channel sits at its limit during the rise and the step gets the saturation warning.
+DEMO_LONG_MOVE = [40.0, 0.0]
 #: The spec the demo judges its steps against (invented, like the axis): the soft and
 #: medium gain sets overshoot too much, the firm one meets it.
 DEMO_PROFILE_TOML = """\
@@ -75,7 +81,25 @@ def demo_plan(quick: bool = False) -> Plan:
     doc = dict(DEMO_PLAN)
     if quick:
         doc.update(dwell=0.5, repeats=1, lead_in=0.3)
-    return parse_plan(doc, source="built-in demo plan")
+    plan = parse_plan(doc, source="built-in demo plan")
+    return _with_long_move(plan, doc)
+
+
+def _with_long_move(plan: Plan, doc: dict[str, Any]) -> Plan:
+    """``plan`` with :data:`DEMO_LONG_MOVE` at the end of its last gain set's pass, tagged as
+    that pass's steps are (and ``move=long``). The move is a plan of its own, from the rest
+    level the pass ends at, so the plan checks (limits, largest change, the safe command's
+    return) hold for it as for every other entry."""
+    last = plan.setpoints()[-1]
+    move = parse_plan({**doc, "levels": DEMO_LONG_MOVE, "gains": [], "repeats": 1,
+                       "rest": last}, source="built-in demo plan, long move")
+    gains = dict(plan.commands[-1].tags).get("gains")
+    extra = []
+    for k, c in enumerate(move.commands, start=len(plan.commands) + 1):
+        tags = (("plan_entry", str(k)), ("setpoint", f"{c.value:g}"), ("move", "long"),
+                *((("gains", gains),) if gains else ()))
+        extra.append(replace(c, entry=k, tags=tags))
+    return replace(plan, commands=plan.commands + tuple(extra))
 
 
 def demo_profile() -> Profile:
@@ -94,7 +118,8 @@ def demo_bench(*, fmt: str = "text", rate: float = DEMO_RATE, seed: int = 1) -> 
 def demo_decoder() -> Decoder:
     """How the demo reads the bench: detected format, 32-bit microsecond device time."""
     clock = ClockSettings(unit="us", wrap_bits=32)
-    return make_decoder("auto", clock=clock, binary_clock=clock)
+    return make_decoder("auto", clock=clock, binary_clock=clock,
+                        channels=("setpoint", "feedback", "force"))
 
 
 def run_demo(*, quick: bool = False, record: Path | None = None, fmt: str = "text",

@@ -165,7 +165,9 @@ class VirtualBench:
         s = self.settings
         self._send_text(s.banner, note=False)
         if s.fmt == "text":
-            self._out.append(b"t,setpoint,feedback\n")
+            extra = self.plant.output_name
+            self._out.append(b"t,setpoint,feedback" + (b"," + extra.encode() if extra else b"")
+                             + b"\n")
         if self.plant.gains is not None:
             self.note(self.plant.gains.describe(), tags=True)
         start = time.monotonic()
@@ -192,12 +194,17 @@ class VirtualBench:
         if not self.streaming:
             return b""
         ts = (s.clock_start + np.round(k * (1e6 / s.rate)).astype(np.int64)) % WRAP
+        out = self.plant.output if self.plant.output_name else None
         if s.fmt == "binary":
-            values = np.column_stack((np.full(n, self.setpoint), y))
+            values = np.column_stack((np.full(n, self.setpoint), y) +
+                                     (() if out is None else (out,)))
             data = encode_sample_frames(ts, values, seq0=self._seq)
             self._seq += n
             return data
         sp = b"%.9g" % self.setpoint
+        if out is not None:  # the controller output as a fourth column
+            return b"".join(b"%d,%s,%.8g,%.6g\n" % (t, sp, v, f) for t, v, f in zip(
+                ts.tolist(), y.tolist(), out.tolist(), strict=True))
         return b"".join(b"%d,%s,%.8g\n" % (t, sp, v) for t, v in zip(ts.tolist(), y.tolist(),
                                                                      strict=True))
 

@@ -38,6 +38,10 @@ class Plant:
 
     period: float  # s between samples
     gains: Gains | None = None
+    #: The name of the controller output the plant reports beside the feedback (``None``:
+    #: none); its values for the last :meth:`advance` are in :attr:`output`.
+    output_name: str | None = None
+    output: FloatArray | None = None
 
     def reset(self, setpoint: float) -> None:
         """Start at rest at ``setpoint``."""
@@ -182,6 +186,8 @@ class AxisParams:
 
 class AxisPlant(Plant):
     """A PID loop at ``params.loop_rate`` around the axis mechanics, sampled at ``period``.
+    Its controller output (the force command after the +-``force_max`` clip, N) at each
+    sample instant is :attr:`output`, named ``force``.
 
     Each loop tick: read the encoder (position plus noise, quantised), compute
     ``kp e + integral - kd d(measured)/dt`` (derivative on the measurement, filtered; the
@@ -190,6 +196,8 @@ class AxisPlant(Plant):
     semi-implicit Euler sub-steps, Coulomb friction with sticking). The sample reported at
     a sample instant is the controller's latest encoder reading.
     """
+
+    output_name = "force"
 
     def __init__(self, params: AxisParams | None = None, *, period: float = 1e-3,
                  seed: int = 0) -> None:
@@ -208,6 +216,7 @@ class AxisPlant(Plant):
         self._dfilt = 0.0  # mm/s, filtered measured velocity
         self._meas = self._quantise(setpoint)
         self._queue = deque([0.0] * self.params.delay_loops)
+        self._u = 0.0  # N, the latest controller output
         self._ticks = 0  # loop ticks done
         self._samples = 0  # samples reported
 
@@ -232,6 +241,8 @@ class AxisPlant(Plant):
         total = int(ticks_at[-1] - self._ticks) if n else 0
         noise = self._rng.standard_normal(total) * p.noise
         out = np.empty(n)
+        forces = np.empty(n)
+        u = self._u
         h = 1.0 / p.loop_rate
         sub = 0.5 * h
         g = self.gains
@@ -269,8 +280,11 @@ class AxisPlant(Plant):
                     pos += sub * vel
             done = int(ticks_at[j])
             out[j] = meas
+            forces[j] = u
         self._pos, self._vel, self._integral, self._dfilt, self._meas = pos, vel, integ, \
             dfilt, meas
         self._ticks = done
         self._samples += n
+        self._u = u
+        self.output = forces
         return out

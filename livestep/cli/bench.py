@@ -15,6 +15,9 @@ from livestep.errors import EXIT_OK, InputError
 from livestep.judge.profile import load_profile
 from livestep.steps.analysis import AnalysisSettings
 
+#: Where ``livestep demo`` puts its recording and reports unless told otherwise.
+DEMO_FOLDER = "livestep-demo"
+
 
 def add_parsers(sub: argparse._SubParsersAction) -> None:
     """The virtual bench commands' parsers."""
@@ -23,8 +26,12 @@ def add_parsers(sub: argparse._SubParsersAction) -> None:
     demo.add_argument("--quick", action="store_true", help="a short plan (about 4 s)")
     demo_rec = demo.add_mutually_exclusive_group()
     demo_rec.add_argument("--record", metavar="FILE", help="recording file (default"
-                          " livestep-demo-YYYYmmdd-HHMMSS.csv; never overwritten)")
+                          " DEMO_FOLDER/livestep-demo-YYYYmmdd-HHMMSS.csv; never"
+                          " overwritten)")
     demo_rec.add_argument("--no-record", action="store_true", help="do not record")
+    demo.add_argument("--folder", metavar="DIR", default=DEMO_FOLDER,
+                      help=f"where the demo's recording and saved reports go (default"
+                      f" {DEMO_FOLDER}/, made if missing; the project's .gitignore covers it)")
     demo.add_argument("--format", choices=("text", "binary"), default="text",
                       help="what the virtual bench streams (default text)")
     demo.add_argument("--seed", type=int, default=1, help="noise seed (default 1)")
@@ -50,16 +57,25 @@ def run_demo_command(args: argparse.Namespace) -> int:
     profile = load_profile(args.profile) if args.profile else demo_profile()
     settings = AnalysisSettings(measure=measure_settings(profile))
 
+    folder = Path(args.folder)
+    if not args.record and not (args.no_record and (args.console or args.json_lines)):
+        try:  # the demo's files go into their own folder, not loose where it runs
+            folder.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise InputError(f"{folder}: cannot make the demo's folder"
+                             f" ({exc.strerror or exc})") from None
     record = None
     if not args.no_record:
-        record = Path(args.record or time.strftime("livestep-demo-%Y%m%d-%H%M%S.csv"))
+        record = Path(args.record) if args.record else folder / time.strftime(
+            "livestep-demo-%Y%m%d-%H%M%S.csv")
     if not (args.console or args.json_lines) and sys.stdout.isatty():
         from livestep.sinks.terminal import textual_color
         from livestep.tui.app import run_demo_app
 
         with textual_color():  # --color and NO_COLOR, as textual reads them
             return run_demo_app(quick=args.quick, record=record, fmt=args.format,
-                                seed=args.seed, profile=profile, settings=settings)
+                                seed=args.seed, profile=profile, settings=settings,
+                                folder=Path(args.record).parent if args.record else folder)
     return run_demo(quick=args.quick, record=record, fmt=args.format, seed=args.seed,
                     json_lines=args.json_lines, profile=profile, settings=settings)
 

@@ -22,7 +22,7 @@ import threading
 import time
 from collections import deque
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import IO, Any, Protocol
 
@@ -94,11 +94,14 @@ class StepEntry:
 
 @dataclass(frozen=True)
 class Samples:
-    """Recent samples (copies): ``t`` seconds, ``setpoint`` (``None`` without one)."""
+    """Recent samples (copies): ``t`` seconds, ``setpoint`` (``None`` without one);
+    ``extras``: the stream's extra channels by name, each with its own times
+    (``(t, values)``), empty for a stream without any."""
 
     t: FloatArray
     feedback: FloatArray
     setpoint: FloatArray | None
+    extras: dict[str, tuple[FloatArray, FloatArray]] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -131,18 +134,22 @@ class Snapshot:
 
 
 class _Ring:
-    """Fixed-size ring buffer of (t, setpoint, feedback) samples."""
+    """Fixed-size ring buffer of (t, setpoint, feedback) samples (or of ``rows`` rows, time
+    first: the extra channels)."""
 
-    def __init__(self, capacity: int) -> None:
-        self.data = np.empty((3, capacity))  # only written samples are ever read
+    def __init__(self, capacity: int, rows: int = 3) -> None:
+        self.data = np.empty((rows, capacity))  # only written samples are ever read
         self.n = 0  # samples ever written
 
     def append(self, t: FloatArray, sp: FloatArray | None, fb: FloatArray) -> None:
+        self.push([t, sp if sp is not None else np.full(t.size, np.nan), fb])
+
+    def push(self, cols: list[FloatArray]) -> None:
         cap = self.data.shape[1]
-        cols = [t, sp if sp is not None else np.full(t.size, np.nan), fb]
-        if t.size >= cap:
+        size = cols[0].size
+        if size >= cap:
             cols = [c[-cap:] for c in cols]
-            self.n += t.size - cap
+            self.n += size - cap
         k = cols[0].size
         start = self.n % cap
         first = min(k, cap - start)
@@ -196,6 +203,8 @@ class _Collector(Sink):
         w = self.watch
         with w._lock:
             w._ring.append(chunk.t, chunk.setpoint, chunk.feedback)
+            if chunk.extras or w._xring is not None:
+                w._push_extras(chunk)
             w._data_time = float(chunk.t[-1])
             w._last_data = time.monotonic()
 
@@ -246,6 +255,8 @@ class Watch:
         self.keep_windows = keep_windows
         self._lock = threading.Lock()
         self._ring = _Ring(ring_samples)
+        self._xring: _Ring | None = None  # the extra channels, once the stream has any
+        self._xnames: tuple[str, ...] = ()
         self._entries: list[StepEntry] = []
         self._notes: deque[Note] = deque(maxlen=1000)  # the latest, for the display
         self._format: str | None = None
@@ -312,6 +323,12 @@ class Watch:
     def done(self) -> bool:
         return self._done.is_set()
 
+    @property
+    def channels(self) -> tuple[str, ...]:
+        """The names of the stream's extra channels seen so far (in the sample ring)."""
+        with self._lock:
+            return self._xnames
+
     def add_note(self, name: str, value: str) -> Note:
         """Tag the steps from now on (the device time of the last sample) with
         ``name=value`` (an empty value ends the note); it reaches the session, and through
@@ -354,13 +371,30 @@ class Watch:
                 error_status=self._error_status, stream_format=self._format,
                 under_way=self._under_way)
 
-    def samples(self, since: float | None = None, count: int = 1 << 16) -> Samples:
+    def samples(self, since: float | None = None, count: int = 1 << 16, *,
+                extras: bool = False) -> Samples:
         """Copies of the recent samples: from device time ``since`` (seconds), or the
-        last ``count``."""
+        last ``count``; with ``extras``, the extra channels too."""
         with self._lock:
             d = self._ring.since(since) if since is not None else self._ring.last(count)
+            x = None
+            if extras and self._xring is not None:
+                x = (self._xring.since(since) if since is not None
+                     else self._xring.last(count))
         sp = None if np.isnan(d[1]).all() else d[1].copy()
-        return Samples(t=d[0].copy(), feedback=d[2].copy(), setpoint=sp)
+        extras = {} if x is None else {name: (x[0].copy(), x[k].copy())
+                                       for k, name in enumerate(self._xnames, start=1)}
+        return Samples(t=d[0].copy(), feedback=d[2].copy(), setpoint=sp, extras=extras)
+
+    def _push_extras(self, chunk: SampleChunk) -> None:
+        """The chunk's extra channels into their ring (under the lock): names fixed by the
+        first chunk that has any, NaN for a missing one."""
+        if self._xring is None:
+            self._xnames = tuple(chunk.extras)
+            self._xring = _Ring(self._ring.data.shape[1], rows=1 + len(self._xnames))
+        x = chunk.extras
+        self._xring.push([chunk.t, *(x[n] if n in x else np.full(len(chunk), np.nan)
+                                     for n in self._xnames)])
 
     # -- analysis thread --------------------------------------------------------
     def _progress(self) -> float | None:

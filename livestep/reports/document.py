@@ -15,8 +15,16 @@ from livestep.judge.profile import Profile
 from livestep.judge.quantities import QUANTITIES
 from livestep.judge.statistics import session_statistics
 from livestep.judge.verdict import StepVerdict, judge
+from livestep.reports.overlay import overlay_groups, overlay_section
 from livestep.reports.page import ReportContent, render_page
-from livestep.reports.plots import TrendPoint, save_png, step_figure, svg_text, trend_figure
+from livestep.reports.plots import (
+    TrendPoint,
+    overlay_figure,
+    save_png,
+    step_figure,
+    svg_text,
+    trend_figure,
+)
 from livestep.reports.session_info import SessionInfo
 from livestep.reports.summary import display_unit, report_quantities
 from livestep.steps.analysis import StepResult
@@ -75,7 +83,8 @@ def write_report(path: str | Path, results: Sequence[StepResult], session_info: 
     steps were measured with (their settling band and rise levels are drawn; default
     ``MeasureSettings()``). With
     ``png_dir`` (created if needed) the plots are written there as well, as
-    ``step-NNN.png`` and ``trend-<quantity>.png``. Raises :class:`InputError` when a
+    ``step-NNN.png``, ``trend-<quantity>.png`` and ``overlay.png`` (the steps of each gain
+set on common axes, when there are several). Raises :class:`InputError` when a
     file cannot be written.
     """
     path = Path(path)
@@ -97,6 +106,13 @@ def write_report(path: str | Path, results: Sequence[StepResult], session_info: 
             step_svgs[r.index] = svg_text(fig, f"s{r.index}-")
             if png is not None:
                 save_png(fig, png / f"step-{r.index:03d}.png")
+        overlay = ""
+        how, groups = overlay_groups(results)
+        if groups:  # several gain sets (or note values): their steps on common axes
+            fig = overlay_figure(groups, settling_band=measure.settling_band)
+            overlay = overlay_section(svg_text(fig, "o-"), how)
+            if png is not None:
+                save_png(fig, png / "overlay.png")
         trend_svgs = []
         for q in quantities if results else ():  # no steps: nothing to plot
             fig = trend_figure(_trend_points(results, q, verdicts), label=QUANTITIES[q].label,
@@ -108,6 +124,7 @@ def write_report(path: str | Path, results: Sequence[StepResult], session_info: 
             results=results, session=session_info, measure=measure, quantities=quantities,
             stats=session_statistics(results, profile),
             step_svgs=step_svgs, trend_svgs=trend_svgs, profile=profile, verdicts=verdicts,
+            overlay=overlay,
             generated=dt.datetime.now(dt.UTC).strftime("%Y-%m-%d %H:%M UTC"),
             version=__version__)
         _write_atomically(path, render_page(content))

@@ -54,6 +54,7 @@ class ReportContent:
     version: str
     profile: Profile | None = None
     verdicts: Sequence[StepVerdict] | None = None
+    overlay: str = ""  # the overlay section's HTML (several gain sets), or nothing
 
 
 _CSS = """
@@ -281,6 +282,6 @@ def render_page(c: ReportContent) -> str:
         "</p></header>"
         + _summary(c)
         + overview_section(c.results, c.verdicts, c.quantities, c.profile)
-        + _trends(c) + _steps(c) + statistics_section(c.stats, c.quantities)
+        + c.overlay + _trends(c) + _steps(c) + statistics_section(c.stats, c.quantities)
         + _profile(c) + _session(c)
         + "</body></html>\n")

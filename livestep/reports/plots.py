@@ -21,7 +21,8 @@ from matplotlib.figure import Figure
 from livestep.steps.analysis import StepResult
 from livestep.steps.second_order import step_response
 
-__all__ = ["TrendPoint", "save_png", "step_figure", "svg_text", "trend_figure"]
+__all__ = ["TrendPoint", "overlay_figure", "save_png", "step_figure", "svg_text",
+           "trend_figure"]
 
 _RC = {"svg.fonttype": "none", "svg.hashsalt": "livestep", "font.size": 8.5,
        "axes.grid": True, "grid.color": "0.88", "grid.linewidth": 0.5,
@@ -200,6 +201,45 @@ def trend_figure(points: Sequence[TrendPoint], *, label: str, unit: str) -> Figu
 
 _ID_REF = re.compile(r'(\bid="|url\(#|href="#)([^")]+)')
 _METADATA = re.compile(r"\s*<metadata>.*?</metadata>", re.DOTALL)
+
+
+#: The overlay's groups: colour and line style each (distinct in black and white too).
+_GROUP_STYLES = (("tab:blue", "-"), ("tab:purple", "--"), ("black", ":"), ("tab:cyan", "-."),
+                 ("tab:brown", (0, (5, 1, 1, 1, 1, 1))), ("0.45", (0, (1, 3))))
+
+
+def overlay_figure(groups: Sequence[tuple[str, StepResult, Sequence[StepResult]]], *,
+                   settling_band: float = 2.0) -> Figure:
+    """Steps on common axes: ``groups`` of (label, median step, other steps), each step's
+    response ``(feedback - initial) / amplitude`` against time from its step instant; the
+    median thick, the others thin, one colour and line style per group; the settling band
+    (+- ``settling_band`` % of the step) around 1 shaded."""
+    with _style():
+        fig = Figure(figsize=_STEP_SIZE)
+        fig.subplots_adjust(**_STEP_MARGINS)
+        ax = fig.add_subplot()
+        end = 0.0
+        for k, (label, rep, others) in enumerate(groups):
+            colour, style = _GROUP_STYLES[k % len(_GROUP_STYLES)]
+            for r, width, alpha in [(rep, 1.8, 1.0)] + [(o, 0.6, 0.45) for o in others]:
+                w, m = r.window, r.metrics
+                assert w is not None
+                t = w.t - m.t_step
+                shown = t <= _view_end(r, float(t[-1]))
+                end = max(end, float(t[shown][-1]))
+                ax.plot(*_thin(t[shown], (w.feedback[shown] - m.initial) / m.amplitude),
+                        color=colour, linestyle=style, linewidth=width, alpha=alpha,
+                        label=f"{label} (step {r.index}, median)" if r is rep else None)
+        half = settling_band / 100
+        ax.axhspan(1 - half, 1 + half, color="0.8", alpha=0.6, linewidth=0.0,
+                   label=f"±{settling_band:g} % band")
+        ax.axhline(0.0, color="0.35", linestyle=":", linewidth=0.7)
+        ax.set_xlim(-0.15 * end, end)
+        ax.set_xlabel("time from the step instant, s")
+        ax.set_ylabel("response / step")
+        ax.set_title("responses normalised to the step", loc="left")
+        ax.legend(loc="lower right")
+    return fig
 
 
 def svg_text(fig: Figure, prefix: str) -> str:

@@ -66,6 +66,9 @@ def step_record(r: StepResult, verdict: StepVerdict | None = None) -> dict[str, 
     rec["sample_period"] = m.sample_period
     rec["window_end"] = r.end_reason
     rec["warnings"] = list(r.warnings)
+    rec["output_limit"] = (None if r.limit is None else
+                           {"channel": r.limit.channel, "value": _clean(r.limit.value),
+                            "start": r.limit.start, "duration": r.limit.duration})
     rec["tags"] = dict(r.tags)
     if verdict is not None:
         rec["verdict"] = verdict.verdict

@@ -15,7 +15,9 @@ from multiprocessing.pool import AsyncResult
 
 import numpy as np
 
+from livestep.steps.channels import ChannelBuffer
 from livestep.steps.detect import DetectorSettings, StepDetector, StepWindow
+from livestep.steps.limits import LimitHold, LimitSettings, limit_hold, limit_warning
 from livestep.steps.measure import MeasureSettings, StepMetrics, measure_step, without_figures
 from livestep.steps.model_fit import (
     ClosedFormEstimate,
@@ -37,6 +39,7 @@ class AnalysisSettings:
     measure: MeasureSettings = field(default_factory=MeasureSettings)
     fit_model: bool = True
     keep_windows: bool = False  # attach each step's samples to its result (plots)
+    limits: LimitSettings = field(default_factory=LimitSettings)  # output-at-limit check
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -53,6 +56,8 @@ class StepResult:
     tags: tuple[tuple[str, str], ...] = ()
     #: The step's samples when ``AnalysisSettings.keep_windows`` is set (for plots).
     window: StepWindow | None = field(default=None, compare=False, repr=False)
+    #: An extra channel (a drive's output) held at its extreme during the rise, if any.
+    limit: LimitHold | None = None
 
 
 def analyze_window(w: StepWindow, settings: AnalysisSettings = AnalysisSettings()) -> StepResult:
@@ -82,9 +87,42 @@ def analyze_window(w: StepWindow, settings: AnalysisSettings = AnalysisSettings(
         warnings.append(f"the second-order model fits poorly (R^2 = {model.fit_r2:.3f})")
     if w.end_reason == "longest window":
         warnings.append("the window was cut at the longest window setting")
+    limit = _held_output(w, m, settings.limits) if w.extras else None
+    if limit is not None:
+        warnings.insert(0, limit_warning(limit))
     return StepResult(index=w.index, metrics=m, estimate=closed_form_estimate(
         m, settings.measure.settling_band), model=model, end_reason=w.end_reason,
-        warnings=tuple(warnings), window=w if settings.keep_windows else None)
+        warnings=tuple(warnings), window=w if settings.keep_windows else None, limit=limit)
+
+
+def _held_output(w: StepWindow, m: StepMetrics, settings: LimitSettings) -> LimitHold | None:
+    """The longest hold at an extreme of any extra channel during the rise (to the upper
+    rise level's crossing, else the peak, else the window's end)."""
+    if m.rise_time is not None:
+        rise_end: float | None = m.t_step + (m.rise_start or 0.0) + m.rise_time
+    elif m.peak_time is not None:
+        rise_end = m.t_step + m.peak_time
+    else:
+        rise_end = None
+    holds = [limit_hold(w.t, x, w.i_step, rise_end, channel=name, settings=settings)
+             for name, x in w.extras.items()]
+    found = [h for h in holds if h is not None]
+    return max(found, key=lambda h: h.duration) if found else None
+
+
+def _with_channels(buffer: ChannelBuffer, chunk: SampleChunk | None,
+                   windows: list[StepWindow], detector: StepDetector) -> list[StepWindow]:
+    """The windows with their extra channels (``chunk``: the one just fed, ``None`` at the
+    end); nothing to do for a stream without extra channels."""
+    if chunk is not None:
+        if not chunk.extras and not buffer:
+            return windows
+        buffer.append(chunk.t, chunk.extras)
+    if not buffer:
+        return windows
+    out = [replace(w, extras=buffer.window(w.t)) for w in windows]
+    buffer.keep_last(detector.held)
+    return out
 
 
 def unmeasured(w: StepWindow, reason: str) -> StepMetrics:
@@ -111,10 +149,12 @@ class StepAnalyzer:
         self.detector = StepDetector(settings.detect, has_setpoint=has_setpoint,
                                      measure=settings.measure)
         self._progress: tuple[int, StepProgress] | None = None  # (step instant, progress)
+        self._channels = ChannelBuffer()
 
     def feed(self, chunk: SampleChunk) -> list[StepResult]:
         """Results of the steps whose windows this chunk closed."""
-        windows = self.detector.feed(chunk.t, chunk.feedback, chunk.setpoint)
+        windows = _with_channels(self._channels, chunk, self.detector.feed(
+            chunk.t, chunk.feedback, chunk.setpoint), self.detector)
         return [analyze_window(w, self.settings) for w in windows]
 
     def progress(self) -> StepProgress | None:
@@ -135,7 +175,8 @@ class StepAnalyzer:
 
     def finish(self, reason: str = "end of data") -> list[StepResult]:
         """Results of the step still open at the end of the stream (or segment)."""
-        return [analyze_window(w, self.settings) for w in self.detector.finish(reason)]
+        return [analyze_window(w, self.settings) for w in _with_channels(
+            self._channels, None, self.detector.finish(reason), self.detector)]
 
 
 def analyze_chunks(chunks: Iterable[SampleChunk], settings: AnalysisSettings = AnalysisSettings(),
@@ -163,8 +204,10 @@ def analyze_chunks(chunks: Iterable[SampleChunk], settings: AnalysisSettings = A
             while pending and (pending[0].ready() or len(pending) > 8 * workers):
                 yield pending.popleft().get()
 
+        channels = ChannelBuffer()
         for chunk in chunks:
-            yield from submit(detector.feed(chunk.t, chunk.feedback, chunk.setpoint))
-        yield from submit(detector.finish())
+            yield from submit(_with_channels(channels, chunk, detector.feed(
+                chunk.t, chunk.feedback, chunk.setpoint), detector))
+        yield from submit(_with_channels(channels, None, detector.finish(), detector))
         while pending:
             yield pending.popleft().get()

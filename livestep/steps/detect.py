@@ -44,6 +44,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import NDArray
 
+from livestep.steps.channels import Columns
 from livestep.steps.measure import MeasureSettings, StepMetrics, noise_sigma, robust_level
 from livestep.steps.settle import confirmed_settled
 
@@ -92,6 +93,7 @@ class StepWindow:
     setpoint_before: float | None
     setpoint_after: float | None
     end_reason: str
+    extras: dict[str, FloatArray] = field(default_factory=dict)  # extra channels, same samples
     #: Closed as settled: the settings and measurement of these samples that closed it.
     measured: tuple[MeasureSettings, StepMetrics] | None = field(
         default=None, compare=False, repr=False)
@@ -100,42 +102,6 @@ class StepWindow:
     def t_step(self) -> float:
         """Step instant, seconds in the recording's time base."""
         return float(self.t[self.i_step])
-
-
-class _Columns:
-    """Growable column buffer with a global sample index for its first row."""
-
-    def __init__(self, width: int) -> None:
-        self.data = np.empty((width, 1024))
-        self.size = 0
-        self.base = 0
-
-    @property
-    def end(self) -> int:
-        return self.base + self.size
-
-    def append(self, cols: list[FloatArray]) -> None:
-        n = cols[0].size
-        if self.size + n > self.data.shape[1]:
-            grown = np.empty((self.data.shape[0], max(2 * self.data.shape[1], self.size + n)))
-            grown[:, : self.size] = self.data[:, : self.size]
-            self.data = grown
-        for row, col in zip(self.data, cols, strict=True):
-            row[self.size : self.size + n] = col
-        self.size += n
-
-    def col(self, k: int, start: int, stop: int) -> FloatArray:
-        return self.data[k, start - self.base : stop - self.base]
-
-    def drop_before(self, index: int) -> None:
-        k = index - self.base
-        if k <= 0:
-            return
-        k = min(k, self.size)
-        if k * 2 >= self.size or k > 65536:
-            self.data[:, : self.size - k] = self.data[:, k : self.size]
-            self.size -= k
-            self.base += k
 
 
 @dataclass
@@ -161,7 +127,7 @@ class StepDetector:
         self.settings = settings
         self.measure = measure if measure is not None else MeasureSettings()
         self.has_setpoint = has_setpoint
-        self._buf = _Columns(3)
+        self._buf = Columns(3)
         self._scan = 1 if has_setpoint else 0
         self._hold_start = 0
         self._open: _Open | None = None
@@ -200,6 +166,11 @@ class StepDetector:
         if self._open is not None:
             self._close(self._buf.end, reason, out)
         return out
+
+    @property
+    def held(self) -> int:
+        """How many of the latest samples the detector still holds."""
+        return self._buf.size
 
     def open_instant(self) -> tuple[int, float] | None:
         """(global sample index of the step instant, seconds from it to the latest

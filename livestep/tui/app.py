@@ -18,10 +18,13 @@ import signal
 import time
 from pathlib import Path
 
+import numpy as np
+from rich.console import Group, RenderableType
+from rich.table import Table
 from rich.text import Text
 from textual.app import App, ComposeResult
 from textual.binding import Binding
-from textual.containers import Horizontal, Vertical, VerticalScroll
+from textual.containers import Grid, Vertical, VerticalScroll
 from textual.css.query import NoMatches
 from textual.message import Message
 from textual.screen import ModalScreen
@@ -35,25 +38,35 @@ from livestep.sources.replay import ReplaySource
 from livestep.steps.analysis import AnalysisSettings
 from livestep.steps.tags import parse_notes
 from livestep.tui import views
+from livestep.tui.overlay import OVERLAY_MODES, gain_summary, overlay_plot
 from livestep.tui.plot import Plot
+from livestep.tui.zoom import channel_plot, error_zoom_plot
 
 __all__ = ["LivestepApp", "run_app", "save_report"]
 
 
 class StepPlotView(Widget):
-    """Thin widget around the pure :class:`~livestep.tui.plot.Plot` renderable."""
+    """Thin widget around the pure :class:`~livestep.tui.plot.Plot` renderable; a second
+    plot (an extra channel) takes the lower third, at least 4 rows (its legend and 3 rows of
+    dots: it has no time axis of its own, the plot above gives it)."""
 
     def __init__(self, **kwargs) -> None:  # noqa: ANN003
         super().__init__(**kwargs)
         self.plot = Plot([], empty="waiting for samples")
+        self.lower: Plot | None = None
 
-    def show(self, plot: Plot) -> None:
-        self.plot = plot
+    def show(self, plot: Plot, lower: Plot | None = None) -> None:
+        self.plot, self.lower = plot, lower
         self.refresh()
 
-    def render(self) -> Plot:
-        self.plot.height = self.content_size.height
-        return self.plot
+    def render(self) -> RenderableType:
+        h = self.content_size.height
+        if self.lower is None or h < 8:
+            self.plot.height = h
+            return self.plot
+        self.lower.height = max(4, h // 3)
+        self.plot.height = h - self.lower.height
+        return Group(self.plot, self.lower)
 
 
 class History(DataTable):
@@ -91,28 +104,41 @@ class HelpScreen(ModalScreen[None]):
     BINDINGS = [Binding("escape,question_mark,q,f1", "close", "close")]
 
     def compose(self) -> ComposeResult:
-        lines = Text()
-        lines.append("Keys\n", "bold")
-        for b in LivestepApp.BINDINGS:
-            assert isinstance(b, Binding)
-            keys = b.key_display or b.key
-            lines.append(f"  {keys:<16} {b.tooltip or b.description}\n")
-        lines.append("\nSymbols\n", "bold")
-        lines.append("  ✔ pass   ▲ warn (inside the limit, within its warning margin)   "
-                     "✘ fail   · not measured\n")
-        for state, sym in views.STATE_SYMBOLS.items():
-            lines.append(f"  {sym} {state}\n")
-        lines.append("\nPlot: r rise (lower and upper level crossings), p peak, s settled;"
-                     " dashed lines: settling band and rise reference levels.\n")
-        lines.append("\nEscape, q or ? closes this screen; arrows scroll it.", "dim")
+        keys = _two_columns([(b.key_display or b.key, b.tooltip or b.description)
+                             for b in LivestepApp.BINDINGS if isinstance(b, Binding)])
+        symbols = _two_columns([("✔", "pass"), ("▲", "warn (inside the limit, within its"
+                                                   " warning margin)"),
+                                ("✘", "fail"), ("·", "not measured"),
+                                ("L", "(history) an extra channel at its limit in the rise"),
+                                *((sym, state) for state, sym in
+                                  views.STATE_SYMBOLS.items())])
+        plot = Text("Plot: r rise (lower and upper level crossings), p peak, s settled, L an"
+                    " extra channel at its limit; dashed lines: the settling band; dotted"
+                    " lines: the rise reference levels. Overlay (o): responses normalised to"
+                    " the step (0 before, 1 at the final level) against time from the step"
+                    " instant. Error zoom (z): the distance to the final level in % of the"
+                    " step, the band filling the middle of the plot.\n")
         with VerticalScroll(id="help-box"):
-            yield Static(lines)
+            yield Static(Group(Text("Keys", "bold"), keys, Text("\nSymbols", "bold"), symbols,
+                               Text(""), plot,
+                               Text("Escape, q or ? closes this screen; arrows scroll it.",
+                                    "dim")))
 
     def on_mount(self) -> None:
         self.query_one("#help-box").focus()  # arrows and page keys scroll a long help
 
     def action_close(self) -> None:
         self.dismiss(None)
+
+
+def _two_columns(rows: list[tuple[str, str]]) -> Table:
+    """Keys or symbols beside what they do, the text wrapping in its own column."""
+    table = Table(box=None, show_header=False, pad_edge=False, padding=(0, 2))
+    table.add_column(no_wrap=True, min_width=6)
+    table.add_column(ratio=1)
+    for key, text in rows:
+        table.add_row(Text("  " + key), Text(text))
+    return table
 
 
 def save_report(watch: Watch, folder: Path) -> str:
@@ -150,39 +176,53 @@ class LivestepApp(App[int]):
     ENABLE_COMMAND_PALETTE = False
     FPS = 15.0
     LIVE_SPAN = 10.0  # s: the longest stretch the live plot shows
-    HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (110, "-wide")]
+    HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (110, "-wide"), (150, "-xwide")]
     BINDINGS = [
+        Binding("q", "quit", "quit", tooltip="quit (the recording is flushed and closed)"),
+        Binding("question_mark,f1", "help", "help", key_display="?",
+                tooltip="this help: every key and symbol"),
         Binding("space", "pause", "pause",
                 tooltip="pause / resume (replay: playback; live: the view)"),
+        Binding("o", "overlay", "overlay", tooltip="overlay: the median step of each gain set;"
+                " again: the last 6 steps; again: one step"),
+        Binding("z", "zoom", "zoom", tooltip="the error zoomed around the settling band;"
+                " again: the step"),
+        Binding("g", "summary", "gain sets", tooltip="one row per gain set: means and verdict"
+                " counts, in the panel; again: the step"),
+        Binding("c", "channel", "channel", tooltip="plot the next extra channel (a drive's"
+                " output, such as force) under the response; after the last: none"),
+        Binding("s", "save", "report", tooltip="save an HTML report of the steps so far"),
+
+        Binding("m", "model", "model", tooltip="show / hide the fitted model over the data"),
+        Binding("n", "note", "note", tooltip="add a note (e.g. gains=B) tagging the next steps"),
         Binding("left,up", "older", "older", key_display="←/↑",
                 tooltip="show the previous step of the history"),
         Binding("right,down", "newer", "newer", key_display="→/↓",
                 tooltip="show the next step of the history"),
         Binding("end,l", "follow", "live", key_display="end/l",
                 tooltip="follow the stream: newest step, current samples"),
-        Binding("n", "note", "note", tooltip="add a note (e.g. gains=B) tagging the next steps"),
-        Binding("m", "model", "model", tooltip="show / hide the fitted model over the data"),
-        Binding("s", "save", "report", tooltip="save an HTML report of the steps so far"),
         Binding("plus,equals_sign", "faster", "faster", key_display="+", show=False,
                 tooltip="replay: twice as fast"),
         Binding("minus", "slower", "slower", key_display="-", show=False,
                 tooltip="replay: half as fast"),
-        Binding("question_mark,f1", "help", "help", key_display="?",
-                tooltip="this help: every key and symbol"),
-        Binding("q", "quit", "quit", tooltip="quit (the recording is flushed and closed)"),
         Binding("ctrl+c", "quit", "quit", show=False, priority=True, key_display="ctrl+c",
                 tooltip="quit, as q"),
     ]
 
     def __init__(self, watch: Watch, *, report_folder: Path | None = None,
-                 quit_on_sigterm: bool = False) -> None:
+                 quit_on_sigterm: bool = False, demo: bool = False) -> None:
         super().__init__()
+        self.demo = demo
         self.quit_on_sigterm = quit_on_sigterm
         self.link = watch
         self.report_folder = report_folder or Path.cwd()
         self.selected: int | None = None  # index into the history; None: follow live
         self.paused = False
         self.show_model = False
+        self.view = "step"  # step, zoom, or an overlay mode (OVERLAY_MODES)
+        self.channel: str | None = None  # the extra channel plotted under the response
+        self.summary = False  # the side panel shows the gain-set summary
+        self._ended = False
         self.message = ""
         self.frames = 0
         self.snap: Snapshot | None = None
@@ -198,12 +238,11 @@ class LivestepApp(App[int]):
     # -- layout -----------------------------------------------------------------
     def compose(self) -> ComposeResult:
         yield Static(id="link")
-        with Horizontal(id="middle"):
+        with Grid(id="body"):  # placed by the stylesheet per terminal width
             yield StepPlotView(id="plot")
             yield Static(id="panel")
+            yield History(id="history", cursor_type="row", zebra_stripes=True)
         yield Static(id="message")
-        table = History(id="history", cursor_type="row", zebra_stripes=True)
-        yield table
         yield Footer()
 
     class StepArrived(Message):
@@ -251,7 +290,7 @@ class LivestepApp(App[int]):
 
     def _frame(self, snap: Snapshot) -> None:
         with self.batch_update():
-            link = views.link_text(snap, narrow=self.narrow)
+            link = views.link_text(snap, narrow=self.narrow, width=self.size.width - 2)
             if link != self._link:  # a new line count needs a new layout, new text does not
                 self.query_one("#link", Static).update(
                     link, layout=self._link is None or link.plain.count("\n") !=
@@ -260,7 +299,7 @@ class LivestepApp(App[int]):
             table = self.query_one(History)
             new = snap.steps[self._rows:]
             for e in new:
-                table.add_row(*views.history_row(e), key=str(self._rows))
+                table.add_row(*views.history_row(e, narrow=self.narrow), key=str(self._rows))
                 self.shown_at[e.result.index] = time.monotonic()
                 self._rows += 1
             if new and self.selected is None:
@@ -268,7 +307,23 @@ class LivestepApp(App[int]):
             if snap.said and snap.said != self._said:
                 self._said = snap.said
                 self.say(snap.said)
+            if snap.done and not self._ended:
+                self._ended = True
+                self.say(self._end_text(snap))
             self._update_step(snap)
+
+    def _end_text(self, snap: Snapshot) -> str:
+        """What to do once the session has ended (the demo's plan done, a replay finished,
+        the link stopped)."""
+        what = "demo over" if self.demo else "session ended"
+        if snap.error:
+            return f"{what} with an error (above); q quits"
+        n = len(snap.steps)
+        folder = self.report_folder
+        with contextlib.suppress(ValueError):
+            folder = folder.resolve().relative_to(Path.cwd())
+        return (f"{what}, {n} step{'s' * (n != 1)}: q quit  o overlay  g gain sets"
+                f"  s report → {folder}/")
 
     def _entry(self, snap: Snapshot) -> StepEntry | None:
         if not snap.steps:
@@ -279,10 +334,15 @@ class LivestepApp(App[int]):
         entry = self._entry(snap)
         live = self.selected is None
         p = snap.under_way
-        if live and p is not None and (not snap.steps or
-                                       p.t_step > snap.steps[-1].result.metrics.t_step):
+        if self.summary:
+            key: tuple = ("summary", len(snap.steps))
+            if key != self._shown:
+                self._shown = key
+                self.query_one("#panel", Static).update(gain_summary(snap.steps))
+        elif live and p is not None and (not snap.steps or
+                                         p.t_step > snap.steps[-1].result.metrics.t_step):
             # a step under way, newer than the last finished one: what is known of it
-            key: tuple = ("under way", *p.known(), round(p.elapsed, 1))
+            key = ("under way", *p.known(), round(p.elapsed, 1))
             if key != self._shown:
                 self._shown = key
                 self.query_one("#panel", Static).update(views.under_way_panel(p))
@@ -296,13 +356,26 @@ class LivestepApp(App[int]):
                 self.link.session.settings.measure.settling_band)
             self.query_one("#panel", Static).update(
                 views.step_panel(entry, live=live, narrow=self.narrow, guidance=guidance))
+        self._draw(snap, entry, live, key)
+
+    def _draw(self, snap: Snapshot, entry: StepEntry | None, live: bool, key: tuple) -> None:
+        """The plot of the chosen view: the step (with the chosen extra channel under it),
+        the error zoom or the overlay."""
+        plot = self.query_one(StepPlotView)
+        measure = self.link.session.settings.measure
+        if self.view != "step":
+            view_key: tuple = (self.view, len(snap.steps),
+                               None if entry is None else entry.result.index)
+            if view_key != self._plotted:
+                self._plotted = view_key
+                plot.show(error_zoom_plot(entry, measure) if self.view == "zoom" else
+                          overlay_plot(snap.steps, measure, mode=self.view))
+            return
         plot_key = (key, self.show_model, snap.data_time if live else None,
-                    self.paused and live and not snap.replay)
+                    self.paused and live and not snap.replay, self.channel)
         if plot_key == self._plotted or (plot_key[3] and self._plotted is not None):
             return  # nothing new to draw (or the live view holds still)
         self._plotted = plot_key
-        plot = self.query_one(StepPlotView)
-        measure = self.link.session.settings.measure
         if not live:
             w = entry.result.window if entry is not None else None
             if w is None:
@@ -311,9 +384,15 @@ class LivestepApp(App[int]):
                 return
             t_step, t_end = entry.result.metrics.t_step, float(w.t[-1])
             start = max(float(w.t[0]), t_step - 0.15 * (t_end - t_step))
+            lower = None
+            if self.channel is not None:
+                x = w.extras.get(self.channel)
+                lower = channel_plot(self.channel, w.t, x if x is not None else
+                                     np.full(w.t.size, np.nan), x_range=(start, t_end),
+                                     t_origin=t_step, e=entry)
             plot.show(views.step_plot(Samples(t=w.t, feedback=w.feedback, setpoint=w.setpoint),
                                       entry, measure, x_range=(start, t_end),
-                                      model=self.show_model, narrow=self.narrow))
+                                      model=self.show_model, narrow=self.narrow), lower)
             return
         if snap.data_time is None:
             return
@@ -322,14 +401,22 @@ class LivestepApp(App[int]):
         if entry is not None:
             start = max(entry.result.metrics.t_step - 0.1 * (end - entry.result.metrics.t_step),
                         end - self.LIVE_SPAN)
-        samples = self.link.samples(since=start)
-        plot.show(views.step_plot(samples, entry, measure, x_range=(start, end),
-                                  model=self.show_model, narrow=self.narrow))
+        samples = self.link.samples(since=start, extras=self.channel is not None)
+        main = views.step_plot(samples, entry, measure, x_range=(start, end),
+                               model=self.show_model, narrow=self.narrow)
+        lower = None
+        if self.channel is not None:
+            tx, x = samples.extras.get(self.channel, (samples.t, np.full(samples.t.size,
+                                                                         np.nan)))
+            lower = channel_plot(self.channel, tx, x, x_range=(start, end),
+                                 t_origin=main.t_origin, e=entry)
+        plot.show(main, lower)
 
     # -- keys -------------------------------------------------------------------
     def say(self, text: str) -> None:
         self.message = text
-        self.query_one("#message", Static).update(Text(text, style="italic"), layout=False)
+        self.query_one("#message", Static).update(
+            Text(text, style="italic", no_wrap=True, overflow="ellipsis"), layout=False)
 
     def _select(self, index: int | None) -> None:
         self.selected = index
@@ -385,6 +472,7 @@ class LivestepApp(App[int]):
             return
         self.paused = not self.paused
         if self.link.done:
+            self._ended = True  # said now: the end's hint would only repeat it
             self.say("the session has ended: nothing is recorded or measured any more")
             return
         self.say("view paused: recording and measuring go on" if self.paused
@@ -413,6 +501,48 @@ class LivestepApp(App[int]):
         self.say("model shown over the data" if self.show_model else "model hidden")
         if self.snap is not None:
             self._update_step(self.snap)
+
+    def _redraw(self) -> None:
+        self._shown = self._plotted = None
+        if self.snap is not None:
+            self._update_step(self.snap)
+
+    def action_overlay(self) -> None:
+        modes = ("step", *OVERLAY_MODES)
+        k = modes.index(self.view) if self.view in modes else 0
+        self.view = modes[(k + 1) % len(modes)]
+        self.say({"step": "one step: its response, band and instants",
+                  "groups": "overlay: the median step of each gain set (o: the last 6)",
+                  "last": "overlay: the last 6 steps (o: back to one step)"}[self.view])
+        self._redraw()
+
+    def action_zoom(self) -> None:
+        self.view = "step" if self.view == "zoom" else "zoom"
+        self.say("error zoom: distance to the final level, % of the step" if self.view ==
+                 "zoom" else "one step: its response, band and instants")
+        self._redraw()
+
+    def action_channel(self) -> None:
+        names = self.link.channels
+        if not names:
+            self.channel = None
+            self.say("no extra channel in this stream (a column or frame channel besides"
+                     " time, setpoint and feedback)")
+            return
+        order = [None, *names]
+        k = order.index(self.channel) if self.channel in order else 0
+        self.channel = order[(k + 1) % len(order)]
+        if self.view != "step":
+            self.view = "step"
+        self.say(f"{self.channel} plotted under the response" if self.channel else
+                 "no extra channel plotted")
+        self._redraw()
+
+    def action_summary(self) -> None:
+        self.summary = not self.summary
+        self.say("side panel: one row per gain set" if self.summary else
+                 "side panel: the step")
+        self._redraw()
 
     def action_note(self) -> None:
         self.push_screen(NoteScreen(), self._add_note)
@@ -449,10 +579,11 @@ class LivestepApp(App[int]):
 
 def run_demo_app(*, quick: bool = False, record: Path | None = None, fmt: str = "text",
                  seed: int = 1, settings: AnalysisSettings | None = None,
-                 profile: Profile | None = None) -> int:
+                 profile: Profile | None = None, folder: Path | None = None) -> int:
     """``livestep demo`` in the terminal UI: the virtual bench on a pty, the built-in plan
     sent by a plan runner (its progress on the message line), each step judged against
-    ``profile`` (default: the built-in demo spec), everything else as live."""
+    ``profile`` (default: the built-in demo spec), everything else as live; reports saved
+    with ``s`` go into ``folder`` (default: the recording's folder, else the current one)."""
     from livestep.bench.demo import demo_bench, demo_decoder, demo_plan, demo_profile
     from livestep.live.plan_run import PlanRunner
     from livestep.live.run import metadata_for
@@ -470,16 +601,17 @@ def run_demo_app(*, quick: bool = False, record: Path | None = None, fmt: str = 
                       source_name=name, record=record, metadata=metadata_for(name, decoder),
                       driver=runner, profile=profile if profile is not None else demo_profile())
         holder.append(watch)
-        status = run_app(watch)
+        status = run_app(watch, report_folder=folder or (record.parent if record else None),
+                         demo=True)
         return status if status != EXIT_OK else runner.exit_status
     finally:
         bench.stop()
 
 
-def run_app(watch: Watch) -> int:
+def run_app(watch: Watch, *, report_folder: Path | None = None, demo: bool = False) -> int:
     """Run the UI on the terminal until the user quits; returns the exit status."""
     watch.start()  # a port that cannot be opened fails here, as one line
-    app = LivestepApp(watch, quit_on_sigterm=True)
+    app = LivestepApp(watch, quit_on_sigterm=True, report_folder=report_folder, demo=demo)
     try:
         status = app.run()
     finally:

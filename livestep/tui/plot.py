@@ -5,7 +5,9 @@ plot of W x H cells has 2W x 4H dots. A trace is drawn column by column as the s
 from the lowest to the highest sample in that dot column, joined to the previous
 column, so fast edges and noise stay visible however many samples fall in a column.
 A cell takes the style of the topmost layer with a dot in it. Markers are vertical
-dotted lines labelled with a letter in the top row, so they read without colour.
+dotted lines labelled with a letter in the top row, so they read without colour. Traces
+and level lines also differ by line pattern (solid, dashed, dotted), not only by colour.
+The value axis labels use one number of decimals; the time axis one unit.
 """
 
 from __future__ import annotations
@@ -33,14 +35,17 @@ class Trace:
     y: ArrayLike
     style: str = ""
     label: str = ""
+    pattern: str = "solid"  # solid, dashed or dotted
 
 
 @dataclass(frozen=True)
 class HLine:
-    """A dashed horizontal line at ``y`` (a reference level or a band edge)."""
+    """A horizontal line at ``y`` (a reference level or a band edge), ``dashed`` or
+    ``dotted``."""
 
     y: float
     style: str = "dim"
+    pattern: str = "dashed"
 
 
 @dataclass(frozen=True)
@@ -50,6 +55,17 @@ class Marker:
     t: float
     label: str
     style: str = "bold"
+
+
+def pattern_mask(pattern: str, width: int) -> NDArray[np.bool_]:
+    """Which of ``width`` dot columns a line of ``pattern`` draws: all (solid), long dashes
+    (dashed: 6 on, 4 off) or short dots (dotted: 1 on, 3 off)."""
+    c = np.arange(width)
+    if pattern == "dashed":
+        return c % 10 < 6
+    if pattern == "dotted":
+        return c % 4 == 0
+    return np.ones(width, dtype=bool)
 
 
 def braille_cells(dots: NDArray[np.bool_]) -> NDArray[np.int32]:
@@ -88,6 +104,8 @@ def _trace_dots(tr: Trace, x0: float, x1: float, y0: float, y1: float,
     hi = np.where(joined, np.maximum(hi, prev), hi)
     r = np.arange(hd)[:, None]
     dots[:, cols] = (r >= lo) & (r <= hi)
+    if tr.pattern != "solid":
+        dots &= pattern_mask(tr.pattern, wd)[None, :]
     return dots
 
 
@@ -101,10 +119,11 @@ class Plot:
                  markers: Sequence[Marker] = (), x_range: tuple[float, float] | None = None,
                  y_range: tuple[float, float] | None = None, height: int | None = None,
                  t_origin: float = 0.0, legend: Sequence[tuple[str, str]] = (),
-                 empty: str = "no samples yet") -> None:
+                 empty: str = "no samples yet", axis: bool = True) -> None:
         self.traces, self.hlines, self.markers = list(traces), list(hlines), list(markers)
         self.x_range, self.y_range, self.height = x_range, y_range, height
         self.t_origin, self.legend, self.empty = t_origin, list(legend), empty
+        self.axis = axis  # the time axis row (a plot stacked under another may go without)
 
     def ranges(self) -> tuple[tuple[float, float], tuple[float, float]] | None:
         """The x and y ranges the plot shows, or ``None`` when there is nothing to show."""
@@ -138,13 +157,13 @@ class Plot:
         width = options.max_width
         height = self.height or options.height or 12
         rng = self.ranges()
-        if rng is None or height < 3 or width < 12:
+        if rng is None or height < 2 + int(self.axis) or width < 12:
             yield Segment(self.empty[:width].ljust(width) + "\n", Style(dim=True))
             for _ in range(max(0, height - 1)):
                 yield Segment(" " * width + "\n")
             return
         (x0, x1), (y0, y1) = rng
-        rows = height - 1 - (1 if self.legend else 0)
+        rows = height - int(self.axis) - (1 if self.legend else 0)
         gutter = 8
         w = width - gutter
         hd, wd = 4 * rows, 2 * w
@@ -152,7 +171,7 @@ class Plot:
         for h in self.hlines:
             d = np.zeros((hd, wd), dtype=bool)
             if y0 <= h.y <= y1:
-                d[_rows(np.array([h.y]), y0, y1, hd)[0], ::4] = True
+                d[_rows(np.array([h.y]), y0, y1, hd)[0]] = pattern_mask(h.pattern, wd)
             layers.append((d, Style.parse(h.style)))
         for tr in self.traces:
             layers.append((_trace_dots(tr, x0, x1, y0, y1, (hd, wd)), Style.parse(tr.style)))
@@ -171,8 +190,9 @@ class Plot:
             code |= c
             owner = np.where(c > 0, k, owner)
         ticks = {0: y1, rows // 2: 0.5 * (y0 + y1), rows - 1: y0}
+        labels_y = _value_labels(list(ticks.values()), y1 - y0, gutter - 1)
         for r in range(rows):
-            label = f"{ticks[r]:>7.4g} " if r in ticks else " " * gutter
+            label = labels_y[list(ticks).index(r)] + " " if r in ticks else " " * gutter
             yield Segment(label[:gutter], Style(dim=True))
             run, run_style = [], None
             for c in range(w):
@@ -189,9 +209,10 @@ class Plot:
             if run:
                 yield Segment("".join(run), run_style)
             yield Segment("\n")
-        left, right = _t(x0 - self.t_origin), _t(x1 - self.t_origin)
-        axis = " " * gutter + left + " " * max(1, w - len(left) - len(right)) + right
-        yield Segment(axis[:width] + "\n", Style(dim=True))
+        if self.axis:
+            left, right = _times([x0 - self.t_origin, x1 - self.t_origin])
+            axis = " " * gutter + left + " " * max(1, w - len(left) - len(right)) + right
+            yield Segment(axis[:width] + "\n", Style(dim=True))
         if self.legend:
             used = 0
             for text, style in self.legend:
@@ -202,5 +223,20 @@ class Plot:
             yield Segment("\n")
 
 
-def _t(seconds: float) -> str:
-    return f"{seconds * 1e3:.0f} ms" if abs(seconds) < 1 else f"{seconds:.2f} s"
+def _value_labels(values: list[float], span: float, width: int) -> list[str]:
+    """The value axis labels with one number of decimals, enough to tell them apart
+    (``span``: the axis span), right-aligned in ``width`` characters; the general format
+    when fixed decimals do not fit."""
+    digits = 0 if not span > 0 else max(0, min(6, 2 - int(np.floor(np.log10(span)))))
+    out = [f"{v:.{digits}f}" for v in values]
+    out = [o[1:] if o.startswith("-") and float(o) == 0 else o for o in out]  # no "-0.00"
+    if max(len(o) for o in out) > width:
+        out = [f"{v:.3g}" for v in values]
+    return [o[:width].rjust(width) for o in out]
+
+
+def _times(seconds: list[float]) -> list[str]:
+    """Times on the axis in one unit: ms when all are under a second, else s."""
+    if max(abs(x) for x in seconds) < 1:
+        return [f"{x * 1e3:.0f} ms" for x in seconds]
+    return [f"{x:.2f} s" for x in seconds]

@@ -10,6 +10,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import numpy as np
+from rich.columns import Columns
 from rich.console import Group, RenderableType
 from rich.table import Table
 from rich.text import Text
@@ -42,6 +43,7 @@ from livestep.steps.analysis import StepResult
 from livestep.steps.measure import MeasureSettings
 from livestep.steps.progress import StepProgress
 from livestep.steps.second_order import step_response
+from livestep.tui.overlay import BOOKKEEPING
 from livestep.tui.plot import HLine, Marker, Plot, Trace
 
 __all__ = ["STATE_SYMBOLS", "design_sentence", "history_row", "link_text", "step_panel",
@@ -54,6 +56,10 @@ _STATE_STYLE = {STREAMING: "bold green", WAITING: "yellow", DISCONNECTED: "bold 
                 PAUSED: "bold yellow", FINISHED: "bold", STOPPED: "bold"}
 _VERDICT_STYLE = {PASS: "bold green", WARN: "bold yellow", FAIL: "bold red",
                   NOT_MEASURED: "dim"}
+#: The plot's own colours: none of them is a verdict colour (green, yellow, red), and
+#: lines that share a plot also differ by pattern (solid, dashed band, dotted levels).
+SETPOINT, FEEDBACK, MODEL = "grey70", "bright_cyan", "bold bright_white"
+BAND, LEVELS, PEAK = "dodger_blue1", "orchid", "bright_white"
 #: What the panel shows for a step without a profile.
 DEFAULT_QUANTITIES = ("rise_time", "peak_time", "overshoot_pct", "settling_time",
                       "steady_state_error_pct", "iae")
@@ -73,8 +79,12 @@ def _rate(hz: float | None) -> str:
     return f"{hz / 1e3:.2f} kHz" if hz >= 1e3 else f"{hz:.0f} Hz"
 
 
-def link_text(snap: Snapshot, *, narrow: bool = False) -> Text:
-    """The link at a glance: state, source, sample rate, decode errors, recording."""
+def link_text(snap: Snapshot, *, narrow: bool = False, width: int | None = None) -> Text:
+    """The link at a glance: state, source, sample rate, decode errors, recording.
+    ``narrow`` with a ``width``: two lines cut to it, the recording's name first on the
+    second so it is never cut away."""
+    if narrow and width:
+        return _narrow_link(snap, width)
     c = snap.counters
     t = Text()
     t.append(f"{STATE_SYMBOLS.get(snap.state, '?')} {snap.state}",
@@ -102,20 +112,61 @@ def link_text(snap: Snapshot, *, narrow: bool = False) -> Text:
     return t
 
 
+def _narrow_link(snap: Snapshot, width: int) -> Text:
+    c = snap.counters
+    one = Text()
+    one.append(f"{STATE_SYMBOLS.get(snap.state, '?')} {snap.state}",
+               _STATE_STYLE.get(snap.state, ""))
+    one.append(f"  {_rate(snap.sample_rate)}")
+    if snap.replay:
+        one.append("  speed " + ("max" if snap.speed is None else f"×{snap.speed:g}"))
+    one.append(f"  {snap.source}", "bold")
+    if snap.profile:
+        one.append(f"  profile {snap.profile}")
+    two = Text()
+    if snap.recording is None:
+        two.append("not recording  ")
+    else:
+        two.append(f"rec {Path(snap.recording).name}  ")
+    bad = c["bad_total"]
+    two.append(f"err {bad}", "bold red" if bad else "")
+    two.append(f" gaps {c['gaps']} lost {c['lost']} reconn {c['reconnects']}"
+               f" samples {c['samples']}")
+    for line in (one, two):
+        line.truncate(width, overflow="ellipsis")
+    t = Text("\n").join([one, two])
+    if snap.error:
+        err = Text(f"\nerror: {snap.error}", "bold red")
+        t.append_text(err)
+    return t
+
+
+def shown_tags(tags: tuple[tuple[str, str], ...], limit: int | None = None) -> str:
+    """A step's tags as ``name=value`` words, the plan's bookkeeping notes (entry,
+    setpoint, repeat) left out; cut to ``limit`` characters with an ellipsis."""
+    text = " ".join(f"{k}={v}" for k, v in tags if k not in BOOKKEEPING)
+    return text if limit is None or len(text) <= limit else text[:limit - 1] + "…"
+
+
 def _ms(x: float | None) -> str:
     return "–" if x is None else f"{1e3 * x:.1f}"
 
 
-def history_row(e: StepEntry) -> tuple[Text | str, ...]:
+def history_row(e: StepEntry, *, narrow: bool = False) -> tuple[Text | str, ...]:
     """One row of the history table: #, t_step, verdict, rise, overshoot, settling,
-    damping ratio, tags."""
+    damping ratio, tags (without the plan's bookkeeping; shortened when ``narrow``), and a
+    ``▲`` before the verdict of a step whose output sat at its limit."""
     r, m = e.result, e.result.metrics
     return (str(r.index), f"{m.t_step:.3f}",
-            verdict_text(e.verdict.verdict) if e.verdict else "–",
+            _limit_mark(e) + (verdict_text(e.verdict.verdict) if e.verdict else Text("–")),
             _ms(m.rise_time), f"{m.overshoot_pct:.1f}",
             _ms(m.settling_time) if m.settled else "no",
             "–" if r.model is None else f"{r.model.zeta:.3f}",
-            Text(" ".join(f"{k}={v}" for k, v in r.tags)))  # a Text: shown literally
+            Text(shown_tags(r.tags, 18 if narrow else 60)))  # a Text: shown literally
+
+
+def _limit_mark(e: StepEntry) -> Text:
+    return Text("L ", "bold") if e.result.limit is not None else Text()
 
 
 HISTORY_COLUMNS = ("#", "t step s", "verdict", "rise ms", "OS %", "settle ms", "ζ", "tags")
@@ -135,6 +186,9 @@ def design_sentence(result: StepResult, profile: Profile | None, band_pct: float
     """The design-guidance sentence for a step (:mod:`livestep.judge.design`): where the profile
     wants the dominant poles against the step's fitted model, the requirement missed by
     most first. ``band_pct``: the settling band, +- % of the amplitude."""
+    if result.limit is not None:
+        return (f"no design guidance: {result.limit.channel} was at its limit during the rise"
+                " (the response is limited, not linear)")
     if profile is None:
         return "design guidance needs a profile (--profile)"
     if result.model is None:
@@ -175,7 +229,7 @@ def step_panel(e: StepEntry | None, *, live: bool, narrow: bool = False,
     """The chosen step against its profile: verdict, one row per limit with the value, the
     limit, the margin and the check's verdict; the fitted model; the design sentence."""
     if e is None:
-        return Text("no step yet: step the setpoint and the verdict appears here",
+        return Text("no finished step yet: a step's figures appear here as it is measured",
                     style="dim")
     r, m = e.result, e.result.metrics
     head = Text()
@@ -183,8 +237,12 @@ def step_panel(e: StepEntry | None, *, live: bool, narrow: bool = False,
     head.append_text(verdict_text(e.verdict.verdict if e.verdict else None, upper=True))
     head.append(f"  {m.direction} {m.amplitude:+.4g} at {m.t_step:.3f} s")
     head.append("  (latest)" if live else "  (history)", "dim")
-    if r.tags:
-        head.append("  " + " ".join(f"{k}={v}" for k, v in r.tags), "italic")
+    tags = shown_tags(r.tags, 24 if narrow else None)
+    if tags:
+        head.append("  " + tags, "italic")
+    if narrow:
+        head.no_wrap, head.overflow = True, "ellipsis"  # one line: the panel is short
+        return _narrow_panel(e, head)
     table = Table(box=None, pad_edge=False, padding=(0, 1), show_edge=False,
                   header_style="bold")
     table.add_column("quantity", no_wrap=True)
@@ -202,18 +260,42 @@ def step_panel(e: StepEntry | None, *, live: bool, narrow: bool = False,
         for name in DEFAULT_QUANTITIES:
             q = QUANTITIES[name]
             table.add_row(q.short, format_value(q, value_of(r, name)))
-    model = Text()
+    parts: list[RenderableType] = [head, table, _model_text(r)]
+    parts.append(Text(guidance, style="italic"))
+    for w in r.warnings[:2]:
+        parts.append(Text(f"▲ {w}", style="yellow"))
+    return Group(*parts)
+
+
+def _model_text(r: StepResult) -> Text:
     f = r.model
     if f is None:
-        model.append("model: not fitted", "dim")
+        return Text("model: not fitted", "dim")
+    return Text(f"ζ {f.zeta:.3f}  ωn {f.wn:.4g} rad/s  dead {1e3 * f.dead_time:.1f} ms"
+                f"  R² {f.fit_r2:.3f}")
+
+
+def _narrow_panel(e: StepEntry, head: Text) -> RenderableType:
+    """The step in a few lines (80 x 24): the head, the output-at-limit warning, every
+    check (or figure) as ``symbol name value`` on wrapping lines, the model."""
+    r = e.result
+    parts: list[RenderableType] = [head]
+    if r.limit is not None:
+        parts.append(Text(f"▲ {r.limit.channel} at its limit {1e3 * r.limit.duration:.0f} ms"
+                          " in the rise: limited, not linear; no model guidance",
+                          style="yellow"))
+    cells: list[Text] = []
+    if e.verdict is not None:
+        for c in e.verdict.checks:
+            q = QUANTITIES[c.quantity]
+            cell = verdict_text(c.verdict)[:1]
+            cell.append(f" {q.short} {format_value(q, c.value)}")
+            cells.append(cell)
     else:
-        model.append(f"ζ {f.zeta:.3f}  ωn {f.wn:.4g} rad/s  dead "
-                     f"{1e3 * f.dead_time:.1f} ms  R² {f.fit_r2:.3f}")
-    parts: list[RenderableType] = [head, table, model]
-    if not narrow:
-        parts.append(Text(guidance, style="italic"))
-        for w in r.warnings[:2]:
-            parts.append(Text(f"▲ {w}", style="yellow"))
+        for name in DEFAULT_QUANTITIES:
+            q = QUANTITIES[name]
+            cells.append(Text(f"{q.short} {format_value(q, value_of(r, name))}"))
+    parts += [Columns(cells, padding=(0, 3)), _model_text(r)]
     return Group(*parts)
 
 
@@ -235,8 +317,8 @@ def overlays(r: StepResult, measure: MeasureSettings, *,
     m = r.metrics
     band = measure.settling_band / 100 * abs(m.amplitude)
     lo, hi = (m.initial + p / 100 * m.amplitude for p in measure.rise_levels)
-    lines = [HLine(m.final - band, "green"), HLine(m.final + band, "green"),
-             HLine(lo, "magenta"), HLine(hi, "magenta")]
+    lines = [HLine(m.final - band, BAND, "dashed"), HLine(m.final + band, BAND, "dashed"),
+             HLine(lo, LEVELS, "dotted"), HLine(hi, LEVELS, "dotted")]
     marks: list[Marker] = []
     if m.rise_time is not None:
         t_lo = None
@@ -247,19 +329,19 @@ def overlays(r: StepResult, measure: MeasureSettings, *,
             after = t >= m.t_step
             t_lo = _crossing(t[after], y[after], lo, m.amplitude > 0)
         if t_lo is not None:
-            marks += [Marker(t_lo, "r", "bold magenta"),
-                      Marker(t_lo + m.rise_time, "r", "bold magenta")]
+            marks += [Marker(t_lo, "r", "bold " + LEVELS),
+                      Marker(t_lo + m.rise_time, "r", "bold " + LEVELS)]
     if m.peak_time is not None:
-        marks.append(Marker(m.t_step + m.peak_time, "p", "bold red"))
+        marks.append(Marker(m.t_step + m.peak_time, "p", "bold " + PEAK))
     if m.settled and m.settling_time is not None:
-        marks.append(Marker(m.t_step + m.settling_time, "s", "bold green"))
+        marks.append(Marker(m.t_step + m.settling_time, "s", "bold " + BAND))
     return lines, marks
 
 
-LEGEND = (("⣿ setpoint ", "yellow"), ("⣿ feedback ", "cyan"), ("┄ settling band ", "green"),
-          ("┄ rise levels ", "magenta"), ("r rise ", "bold magenta"), ("p peak ", "bold red"),
-          ("s settled ", "bold green"))
-MODEL_LEGEND = (("⣿ model ", "bold white"),)
+LEGEND = (("━ setpoint ", SETPOINT), ("━ feedback ", FEEDBACK), ("╍ settling band ", BAND),
+          ("┈ rise levels ", LEVELS), ("r rise ", "bold " + LEVELS), ("p peak ", "bold " + PEAK),
+          ("s settled ", "bold " + BAND))
+MODEL_LEGEND = (("━ model ", MODEL),)
 
 
 def step_plot(samples: Samples | None, e: StepEntry | None, measure: MeasureSettings, *,
@@ -273,8 +355,8 @@ def step_plot(samples: Samples | None, e: StepEntry | None, measure: MeasureSett
     origin = 0.0
     if samples is not None and samples.t.size:
         if samples.setpoint is not None:
-            traces.append(Trace(samples.t, samples.setpoint, "yellow", "setpoint"))
-        traces.append(Trace(samples.t, samples.feedback, "cyan", "feedback"))
+            traces.append(Trace(samples.t, samples.setpoint, SETPOINT, "setpoint"))
+        traces.append(Trace(samples.t, samples.feedback, FEEDBACK, "feedback"))
     if e is not None:
         r = e.result
         origin = r.metrics.t_step
@@ -285,7 +367,7 @@ def step_plot(samples: Samples | None, e: StepEntry | None, measure: MeasureSett
             tt = np.linspace(mt.t_step, float(samples.t[-1]), 400)
             y = mt.initial + f.amplitude * step_response(
                 np.maximum(tt - mt.t_step - f.dead_time, 0.0), f.zeta, f.wn)
-            traces.append(Trace(tt, y, "bold white", "model"))
+            traces.append(Trace(tt, y, MODEL, "model"))
     legend = (LEGEND[4:] + LEGEND[:4] if narrow else LEGEND) + (MODEL_LEGEND if model else ())
     return Plot(traces, hlines=lines, markers=marks, x_range=x_range, t_origin=origin,
                 legend=legend, empty=empty)

@@ -247,6 +247,7 @@ def test_narrow_terminal_shows_the_verdict_and_key_numbers(tmp_path):
 def test_main_screen_snapshot(tmp_path, monkeypatch):
     """The whole main screen as text, after the demo replay, step 3 chosen. Regenerate
     with LIVESTEP_UPDATE_SNAPSHOTS=1 after a deliberate change of the layout."""
+    monkeypatch.chdir(tmp_path)  # the end's hint names the report folder: "./" here
     app = replay_app(tmp_path)
     expected_file = SNAPSHOTS / "tui-main-120x36.txt"
     # The guidance sentence comes from another module's wording: fixed here.
@@ -272,10 +273,11 @@ def plain_terminal_text(raw: bytes) -> str:
 
 
 def run_in_terminal(args: list[str], keys: bytes | None, *, until: str, size=(24, 80),
-                    timeout: float = 30.0) -> tuple[int, str]:
+                    timeout: float = 30.0, steps=()) -> tuple[int, str]:
     """Run ``livestep`` on a real pseudo-terminal of ``size`` (rows, columns) until it has
-    drawn ``until`` (bounded by ``timeout``), then type ``keys`` (or send SIGTERM): its
-    exit status and everything it drew."""
+    drawn ``until`` (bounded by ``timeout``), type each of ``steps`` (keys, then what they
+    should draw) waiting for it, then type ``keys`` (or send SIGTERM): its exit status and
+    everything it drew."""
     master, slave = os.openpty()
     fcntl.ioctl(slave, termios.TIOCSWINSZ, struct.pack("HHHH", *size, 0, 0))
     env = dict(os.environ, TERM="xterm-256color")
@@ -297,6 +299,11 @@ def run_in_terminal(args: list[str], keys: bytes | None, *, until: str, size=(24
 
     try:
         read(lambda: until in plain_terminal_text(out[-20000:]))
+        for typed, drawn in steps:
+            mark = len(out)
+            os.write(master, typed)
+            read(lambda drawn=drawn, mark=mark: drawn in plain_terminal_text(out[mark:]))
+            assert drawn in plain_terminal_text(out[mark:]), f"{typed!r} did not draw {drawn!r}"
         if keys is None:
             proc.send_signal(signal.SIGTERM)
         else:

@@ -40,7 +40,7 @@ def test_a_level_trace_fills_one_dot_row():
     assert text[2][8:] == "⠉" * 40
     assert all(set(text[r][8:]) == {" "} for r in (0, 1, 3))
     assert text[0].strip().startswith("1") and text[3].strip().startswith("-1")
-    assert text[4].split() == ["0", "ms", "1.00", "s"]
+    assert text[4].split() == ["0.00", "s", "1.00", "s"]  # one unit on the time axis
 
 
 def test_a_step_edge_is_joined_and_markers_are_labelled():
@@ -77,3 +77,34 @@ def test_the_topmost_layer_styles_a_shared_cell():
 def test_nothing_to_show():
     text, _ = render(Plot([], empty="waiting for samples", height=3))
     assert text[0].startswith("waiting for samples") and len(text) == 3
+
+
+def test_axis_labels_use_one_precision_and_one_unit():
+    # y from 0 to 5.4 (span 5.4 plus margins): every label with the same decimals; the time
+    # axis from -0.2 s to 1.3 s in seconds at both ends (not "-200 ms" beside "1.30 s")
+    t = np.linspace(-0.2, 1.3, 300)
+    text, _ = render(Plot([Trace(t, np.where(t > 0, 5.4, 0.0))], height=9))
+    labels = [ln[:8].strip() for ln in text[:8] if ln[:8].strip()]
+    assert len(labels) == 3
+    assert len({lab.partition(".")[2].__len__() for lab in labels}) == 1, labels
+    assert text[8].split() == ["-0.20", "s", "1.30", "s"]
+    t = np.linspace(-0.05, 0.4, 300)
+    text, _ = render(Plot([Trace(t, t)], height=6))
+    assert text[5].split() == ["-50", "ms", "400", "ms"]
+
+
+def test_line_patterns_differ_by_dots_not_only_colour():
+    # a dashed level line leaves gaps a dotted one fills differently, and a dashed trace
+    # draws fewer columns than a solid one on the same samples
+    t = np.linspace(0.0, 1.0, 500)
+    z = np.zeros_like(t)
+    solid, _ = render(Plot([Trace(t, z)], y_range=(-1, 1), height=5))
+    dashed, _ = render(Plot([Trace(t, z, pattern="dashed")], y_range=(-1, 1), height=5))
+    dotted, _ = render(Plot([Trace(t, z, pattern="dotted")], y_range=(-1, 1), height=5))
+    assert solid[2][8:].count(" ") == 0
+    assert 0 < dashed[2][8:].count(" ") < dotted[2][8:].count(" ")
+    a, _ = render(Plot([], hlines=[HLine(0.0, pattern="dashed")], x_range=(0, 1),
+                       y_range=(-1, 1), height=5))
+    b, _ = render(Plot([], hlines=[HLine(0.0, pattern="dotted")], x_range=(0, 1),
+                       y_range=(-1, 1), height=5))
+    assert a[2][8:] != b[2][8:] and a[2][8:].strip() and b[2][8:].strip()
