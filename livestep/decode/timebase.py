@@ -205,15 +205,16 @@ class Timebase:
     def _stamp_few(self, raw: list[float]) -> Stamped:
         """:meth:`_stamp_increasing` for a few samples, in Python floats (the same IEEE
         operations in the same order, so the same seconds), as a small read brings."""
-        o_t, off, o_r, sc = self._origin_t, self._offset, self._origin_raw, self._scale
+        o_t, off, sc = float(self._origin_t), float(self._offset), float(self._scale)
+        o_r = float(self._origin_raw)  # numpy scalars would make numpy counts below
         t = [o_t + (x + off - o_r) * sc for x in raw]
-        prev, limit = self._last_t, 1.5 * self._period  # type: ignore[operator]
+        prev, limit = float(self._last_t), 1.5 * float(self._period)  # type: ignore[arg-type]
         gaps = 0
         for x in t:
             gaps += x - prev > limit  # type: ignore[operator]
             prev = x
-        self.counters.gaps += gaps
-        self._last_raw, self._last_t = raw[-1], t[-1]
+        self.counters.gaps += int(gaps)
+        self._last_raw, self._last_t = float(raw[-1]), float(t[-1])
         return Stamped(np.array(t), np.ones(len(t), dtype=bool), [])
 
     def _update_period(self, t: NDArray[np.float64], starts: list[int]) -> None:

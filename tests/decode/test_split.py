@@ -301,3 +301,16 @@ def test_a_note_among_the_rows_takes_the_time_of_the_row_before_it():
         out = run(text_decoder, data, [len(head)])
     assert taken and all(taken)
     assert [t for t, n, _ in out["notes"] if n == "gains"] == [pytest.approx(5.5e-3)]
+
+
+def test_counters_stay_plain_numbers_whatever_the_read_size():
+    # The recorder writes them as JSON: a numpy integer there ended a session (found by the
+    # live tests once small reads were stamped in Python floats).
+    import json
+
+    for size in (7, 256, 4096, len(TEXT)):
+        dec = text_decoder()
+        for i in range(0, len(TEXT), size):
+            dec.feed(TEXT[i:i + size])
+        dec.flush()
+        json.dumps(dec.counters.snapshot())
