@@ -25,11 +25,14 @@ ALLOWED: dict[str, set[str]] = {
     "decode": {"steps"},
     "sources": {"steps", "decode"},
     "sinks": {"steps", "judge", "decode", "reports"},
-    "reports": {"steps", "judge", "decode", "sources"},
+    "tuning": {"steps", "judge"},
+    "reports": {"steps", "judge", "decode", "sources", "tuning"},
     "live": {"steps", "judge", "decode", "sources", "sinks", "reports"},
-    "bench": {"steps", "judge", "decode", "sources", "sinks", "live"},
-    "tui": {"steps", "judge", "decode", "sources", "sinks", "reports", "live", "bench"},
-    "cli": {"steps", "judge", "decode", "sources", "sinks", "reports", "live", "bench", "tui"},
+    "bench": {"steps", "judge", "decode", "sources", "sinks", "live", "tuning"},
+    "tui": {"steps", "judge", "decode", "sources", "sinks", "reports", "live", "bench",
+            "tuning"},
+    "cli": {"steps", "judge", "decode", "sources", "sinks", "reports", "live", "bench", "tui",
+            "tuning"},
 }
 
 

@@ -453,8 +453,7 @@ def run_demo_app(*, quick: bool = False, record: Path | None = None, fmt: str = 
     """``livestep demo`` in the terminal UI: the virtual bench on a pty, the built-in plan
     sent by a plan runner (its progress on the message line), each step judged against
     ``profile`` (default: the built-in demo spec), everything else as live."""
-    from livestep.bench.demo import demo_bench, demo_decoder, demo_plan, demo_profile
-    from livestep.live.plan_run import PlanRunner
+    from livestep.bench.demo import demo_bench, demo_decoder, demo_driver, demo_profile
     from livestep.live.run import metadata_for
     from livestep.sources.serial_port import PortSettings, SerialReader
 
@@ -464,11 +463,12 @@ def run_demo_app(*, quick: bool = False, record: Path | None = None, fmt: str = 
         name = f"livestep demo (virtual bench on {path})"
         decoder = demo_decoder()
         holder: list[Watch] = []
-        runner = PlanRunner(demo_plan(quick), out=lambda line: holder[0].say(line))
+        profile = profile if profile is not None else demo_profile()
+        runner = demo_driver(quick, profile, out=lambda line: holder[0].say(line))
         watch = Watch(SerialReader(PortSettings(url=path)), decoder,
                       settings if settings is not None else AnalysisSettings(),
                       source_name=name, record=record, metadata=metadata_for(name, decoder),
-                      driver=runner, profile=profile if profile is not None else demo_profile())
+                      driver=runner, profile=profile)
         holder.append(watch)
         status = run_app(watch)
         return status if status != EXIT_OK else runner.exit_status
