@@ -183,16 +183,30 @@ def _fit_form(form: str, records: Sequence[StepRecord], spec: ControllerSpec,
               dead_options: Sequence[int], span: int) -> tuple[float, _Fit, FloatArray]:
     """The best dead time and parameters on the first ``span`` ticks of each step."""
     p0 = _start(form, records, spec)
+    tried: dict[int, tuple[float, _Fit, FloatArray]] = {}
+
+    def fit(dead: int) -> tuple[float, _Fit, FloatArray]:
+        if dead not in tried:
+            f = _Fit(form, dead, records, spec, ticks=span)
+            p, _, cost = _solve(f, p0, 15)
+            tried[dead] = (cost, f, p)
+        return tried[dead]
+
     best = None
-    for dead in dead_options:
-        f = _Fit(form, dead, records, spec, ticks=span)
-        p, _, cost = _solve(f, p0, 15)
-        if best is None or cost < best[0]:
-            best = (cost, f, p)
-        elif cost > 1.2 * best[0]:
+    for dead in dead_options:  # a coarse grid, up while it helps
+        cur = fit(dead)
+        if best is None or cur[0] < best[0]:
+            best = cur
+        elif cur[0] > 1.2 * best[0]:
             break  # more dead time only makes it worse
     assert best is not None
-    return best
+    while True:  # then whole loop periods either side of the best
+        d = best[1].dead
+        better = [fit(x) for x in (d - 1, d + 1) if x >= 0]
+        top = min(better, key=lambda c: c[0], default=best)
+        if top[0] >= best[0]:
+            return best
+        best = top
 
 
 def identify(records: Sequence[StepRecord], spec: ControllerSpec) -> Identification:
