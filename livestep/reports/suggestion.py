@@ -103,18 +103,20 @@ def model_lines(s: Suggestion) -> list[str]:
     if ident is None:
         return []
     m = ident.model
-    unit = s.controller.output_unit if s.controller and s.controller.output_unit else "out"
+    unit = s.controller.output_unit if s.controller and s.controller.output_unit else \
+        "output units"
+    fb = "feedback unit"
     if m.form == "position":
-        rows = [("inertia", m.inertia, f"{unit} s²/fb"), ("viscous", m.viscous, f"{unit} s/fb"),
-                ("coulomb", m.coulomb, unit)]
-        form = "mass with viscous and Coulomb friction, 1/(s (J s + B)) + Fc"
+        rows = [("inertia", m.inertia, f"{unit} s² per {fb}"),
+                ("viscous", m.viscous, f"{unit} s per {fb}"), ("coulomb", m.coulomb, unit)]
+        form = "a mass with viscous and Coulomb friction, J y'' = u - B y' - Fc sign(y')"
     else:
-        rows = [("gain", m.gain, f"fb/{unit}"), ("tau", m.tau, "s")]
+        rows = [("gain", m.gain, f"{fb}s per {unit}"), ("tau", m.tau, "s")]
         form = "first order, K/(tau s + 1)"
     dead = m.dead_ticks / s.controller.rate if s.controller else 0.0
-    lines = [f"model: {form}, dead time {dead * 1e3:.2g} ms beyond the declared delay;"
-             f" R² {ident.r2:.4f}, residual {ident.rms:.3g} fb, {len(ident.steps)} steps"
-             f" under {ident.gain_sets} gain sets"]
+    lines = [f"model: {form}; dead time {dead * 1e3:.2g} ms beyond the declared delay;"
+             f" R² {ident.r2:.4f}, residual {ident.rms:.3g} {fb}s rms, from {len(ident.steps)}"
+             f" steps under {ident.gain_sets} gain sets"]
     for name, v, u in rows:
         rel = ident.relative(name)
         lines.append(f"  {name} = {v:.4g} {u} ± {ident.sigma[name]:.2g}"
@@ -160,9 +162,9 @@ def suggestion_renderable(s: Suggestion, *, trends: bool = True) -> RenderableTy
                                for q in SHOWN])
         parts.append(tab)
         unit = s.controller.output_unit if s.controller else ""
-        parts.append(Text(f"for a {s.amplitude:g} step; peak output {p.output_peak:.4g}"
-                          f" {unit}; range: the model moved by 2 sd of its parameters"
-                          " (at least 5 %) and starting stuck either way"))
+        parts.append(Text(f"predicted for a step of {s.amplitude:g} (feedback units); peak"
+                          f" output {p.output_peak:.4g} {unit}; range: the model moved by 2 sd"
+                          " of its parameters (at least 5 %) and starting stuck either way"))
     for n in s.notes:
         parts.append(Text(f"note: {n}", style="yellow"))
     for c in s.cautions:

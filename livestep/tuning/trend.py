@@ -70,8 +70,7 @@ class Trend:
 
 def _fmt(q: str, v: float) -> str:
     f, unit = display_unit(q)
-    sep = "" if unit in ("%", "") else " "
-    return f"{v * f:.3g}{sep}{unit}"
+    return f"{v * f:.3g} {unit}" if unit else f"{v * f:.3g}"
 
 
 def _crossing(coeffs: np.ndarray, bound: float, lo: float, hi: float) -> float | None:
@@ -147,13 +146,16 @@ def _one(gain: str, q: str, limit: Limit, others: tuple[tuple[str, float], ...],
     above = (slope < 0) if sense == "max" else (slope > 0)
     extra = not (xs.min() <= at <= xs.max())
     word = "from" if above else "up to"
-    if at < 0:
-        text = f"{head}: the fit meets it only at {gain} ≈ {at:.3g} (negative: out of reach)"
+    if at < 0 or (extra and ok_all):  # met throughout: the crossing is only a far-off hint
+        where = "negative: out of reach" if at < 0 else f"EXTRAPOLATED beyond {xs.min():g} to" \
+            f" {xs.max():g}"
+        text = (f"{head}: met at every measured {gain} ({measured}); the fit reaches the limit"
+                f" only at {gain} ≈ {at:.3g} ({where})")
     else:
         text = f"{head} is met {word} {gain} ≈ {at:.3g}"
         if margin_at is not None and margin_at != at and margin_at >= 0:
-            text += (f" ({op} {_fmt(q, tight)} with the warning margin {word} {gain} ≈"
-                     f" {margin_at:.3g})")
+            text += (f"; {op} {_fmt(q, tight)} with the warning margin {word} {gain} ≈"
+                     f" {margin_at:.3g}")
         if extra:
             text += (f", EXTRAPOLATED beyond the measured {gain} {xs.min():g} to"
                      f" {xs.max():g} ({measured})")

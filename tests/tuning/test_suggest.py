@@ -12,8 +12,8 @@ from _axis_session import bench_session
 
 from livestep.bench.demo import demo_controller, demo_profile
 from livestep.bench.plants import AxisParams, Gains
-from livestep.judge.verdict import judge
 from livestep.judge.quantities import value_of
+from livestep.judge.verdict import judge
 from livestep.reports.suggestion import suggestion_document
 from livestep.tuning.records import StepRecord, records_of, saturation
 from livestep.tuning.suggest import CAUTIONS, suggest

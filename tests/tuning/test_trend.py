@@ -6,11 +6,10 @@ from __future__ import annotations
 from dataclasses import replace
 
 import pytest
+from _axis_session import bench_session
 
 from livestep.judge.profile import parse_profile
 from livestep.tuning.trend import trends
-
-from _axis_session import bench_session
 
 PROFILE = parse_profile("[limits]\novershoot_pct = { max = 20, warn = 5 }\n")
 
