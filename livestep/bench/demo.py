@@ -114,7 +114,6 @@ def demo_driver(quick: bool = False, profile: Profile | None = None, *,
     three (:class:`~livestep.bench.suggested_pass.SuggestedPass`)."""
     say = out if out is not None else _stderr
     if quick:
-        say("demo --quick: no fourth pass with suggested gains (run livestep demo for it)")
         return PlanRunner(demo_plan(True), out=say)
     return SuggestedPass(DEMO_PLAN, profile if profile is not None else demo_profile(),
                          demo_controller(), out=say, source="built-in demo plan")
@@ -150,7 +149,8 @@ def run_demo(*, quick: bool = False, record: Path | None = None, fmt: str = "tex
     plan = demo_plan(quick)
     print(f"livestep demo: virtual bench on {path} (simulated, no hardware); sending the"
           f" built-in plan, {len(plan.commands)} commands over {plan.duration:.0f} s"
-          + ("" if quick else ", then a fourth pass with the gains livestep suggests"),
+          + (" (--quick: no fourth pass with suggested gains)" if quick
+             else ", then a fourth pass with the gains livestep suggests"),
           file=sys.stderr, flush=True)
     profile = profile if profile is not None else demo_profile()
     try:

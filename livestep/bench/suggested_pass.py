@@ -74,6 +74,7 @@ class SuggestedPass:
         self.phase = "base"  # base, settling, thinking, fourth, closing, done
         self.suggestion: Suggestion | None = None
         self.agreed: bool | None = None
+        self.report_lines: list[str] = []  # what the last pass did against the prediction
         self._link: Link | None = None
         self._session: Session | None = None
         self._thread: threading.Thread | None = None
@@ -188,5 +189,6 @@ class SuggestedPass:
         pairs = self._pass_steps()
         self.agreed, lines = compare_pass(self.suggestion, [r for r, _ in pairs],
                                           [v for _, v in pairs])
+        self.report_lines = lines
         for line in lines:
             self.out(line)

@@ -36,6 +36,8 @@ from livestep.steps.analysis import AnalysisSettings
 from livestep.steps.tags import parse_notes
 from livestep.tui import views
 from livestep.tui.plot import Plot
+from livestep.tui.suggestion_view import SuggestionScreen, SuggestionTracker, controller_of
+from livestep.tuning.controller import ControllerSpec
 
 __all__ = ["LivestepApp", "run_app", "save_report"]
 
@@ -163,6 +165,8 @@ class LivestepApp(App[int]):
         Binding("n", "note", "note", tooltip="add a note (e.g. gains=B) tagging the next steps"),
         Binding("m", "model", "model", tooltip="show / hide the fitted model over the data"),
         Binding("s", "save", "report", tooltip="save an HTML report of the steps so far"),
+        Binding("t", "suggestion", "gains", tooltip="gain suggestion: trends across gain sets,"
+                " and gains to try with a [controller] section (nothing is sent)"),
         Binding("plus,equals_sign", "faster", "faster", key_display="+", show=False,
                 tooltip="replay: twice as fast"),
         Binding("minus", "slower", "slower", key_display="-", show=False,
@@ -175,8 +179,11 @@ class LivestepApp(App[int]):
     ]
 
     def __init__(self, watch: Watch, *, report_folder: Path | None = None,
-                 quit_on_sigterm: bool = False) -> None:
+                 quit_on_sigterm: bool = False, controller: ControllerSpec | None = None) -> None:
         super().__init__()
+        spec, why = (controller, "") if controller is not None else controller_of(watch.profile)
+        self.tracker = SuggestionTracker(watch.profile, spec, why, extra=lambda: getattr(
+            watch.driver, "report_lines", []))  # the demo's fourth pass, once it has run
         self.quit_on_sigterm = quit_on_sigterm
         self.link = watch
         self.report_folder = report_folder or Path.cwd()
@@ -231,6 +238,7 @@ class LivestepApp(App[int]):
         self.frame()
 
     def on_unmount(self) -> None:
+        self.tracker.close()
         self.link.stop()
         self.link.wait(5.0)
 
@@ -244,6 +252,7 @@ class LivestepApp(App[int]):
         snap = self.link.snapshot()
         self.snap = snap
         self.frames += 1
+        self.tracker.poll(snap.steps)
         try:
             self._frame(snap)
         except NoMatches:  # a timer firing while the screen is torn down
@@ -414,6 +423,9 @@ class LivestepApp(App[int]):
         if self.snap is not None:
             self._update_step(self.snap)
 
+    def action_suggestion(self) -> None:
+        self.push_screen(SuggestionScreen(self.tracker))
+
     def action_note(self) -> None:
         self.push_screen(NoteScreen(), self._add_note)
 
@@ -453,7 +465,13 @@ def run_demo_app(*, quick: bool = False, record: Path | None = None, fmt: str = 
     """``livestep demo`` in the terminal UI: the virtual bench on a pty, the built-in plan
     sent by a plan runner (its progress on the message line), each step judged against
     ``profile`` (default: the built-in demo spec), everything else as live."""
-    from livestep.bench.demo import demo_bench, demo_decoder, demo_driver, demo_profile
+    from livestep.bench.demo import (
+        demo_bench,
+        demo_controller,
+        demo_decoder,
+        demo_driver,
+        demo_profile,
+    )
     from livestep.live.run import metadata_for
     from livestep.sources.serial_port import PortSettings, SerialReader
 
@@ -470,16 +488,16 @@ def run_demo_app(*, quick: bool = False, record: Path | None = None, fmt: str = 
                       source_name=name, record=record, metadata=metadata_for(name, decoder),
                       driver=runner, profile=profile)
         holder.append(watch)
-        status = run_app(watch)
+        status = run_app(watch, controller=demo_controller())
         return status if status != EXIT_OK else runner.exit_status
     finally:
         bench.stop()
 
 
-def run_app(watch: Watch) -> int:
+def run_app(watch: Watch, *, controller: ControllerSpec | None = None) -> int:
     """Run the UI on the terminal until the user quits; returns the exit status."""
     watch.start()  # a port that cannot be opened fails here, as one line
-    app = LivestepApp(watch, quit_on_sigterm=True)
+    app = LivestepApp(watch, quit_on_sigterm=True, controller=controller)
     try:
         status = app.run()
     finally:
