@@ -103,7 +103,7 @@ def test_key_t_shows_the_suggestion_and_goes_back(tmp_path):
         assert isinstance(app.screen, SuggestionScreen)
         await pilot.pause()
         console = Console(width=120, record=True, file=io.StringIO())
-        console.print(app.query_one("#suggestion", Static).content)
+        console.print(app.screen.query_one("#suggestion", Static).content)
         shown = console.export_text()
         assert "overshoot ≤ 20 % is met from kd ≈" in shown
         assert "no [controller] section" in shown and "Nothing has been sent" in shown
