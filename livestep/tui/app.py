@@ -373,8 +373,8 @@ class LivestepApp(App[int]):
 
     def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
         """A row the user clicked (the app's own cursor moves are not choices)."""
-        table = self.query_one(History)
-        if table.clicked:
+        table = event.data_table  # not a query: another screen (a note) may be on top
+        if isinstance(table, History) and table.clicked:
             table.clicked = False
             self._select(event.cursor_row)
 

@@ -86,6 +86,7 @@ class SuggestionTracker:
         self._key: tuple | None = None
         self._started = 0.0
         self._pending_steps = 0
+        self._seen = -1  # steps looked at last time
 
     @property
     def busy(self) -> bool:
@@ -106,8 +107,9 @@ class SuggestionTracker:
             except Exception as exc:  # noqa: BLE001 - shown on the screen, the view goes on
                 self.error = f"the suggestion failed: {type(exc).__name__}: {exc}"
             self._future = None
-        if self.profile is None or self._future is not None:
-            return arrived
+        if self.profile is None or self._future is not None or len(steps) == self._seen:
+            return arrived  # nothing new since the last look: no work on this frame
+        self._seen = len(steps)
         results = [e.result for e in steps]
         sets = gain_sets(results, self.names)
         if len(sets) < 2:
@@ -115,7 +117,10 @@ class SuggestionTracker:
                            f" are read from the notes {', '.join(self.names)})")
             return arrived
         key = tuple((g, len(s)) for g, s in sets.items())
-        if key == self._key or now - self._started < self.MIN_INTERVAL:
+        if key == self._key:
+            return arrived
+        if now - self._started < self.MIN_INTERVAL:
+            self._seen = -1  # look again on a later frame
             return arrived
         self._key, self._started, self._pending_steps = key, now, len(results)
         # the pool's first queue starts multiprocessing's resource tracker, which hands it
