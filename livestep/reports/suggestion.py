@@ -46,7 +46,8 @@ def suggestion_document(s: Suggestion, *, source: str, profile: str) -> dict[str
     model = None
     if ident is not None:
         m = ident.model
-        names = ("inertia", "viscous", "coulomb") if m.form == "position" else ("gain", "tau")
+        names = {"position": ("inertia", "viscous", "coulomb"), "process": ("gain", "tau"),
+                 "second": ("gain", "tau", "tau2")}[m.form]
         model = {"form": m.form,
                  "parameters": {n: {"value": float(getattr(m, n)), "sigma": ident.sigma[n]}
                                 for n in names},
@@ -110,6 +111,10 @@ def model_lines(s: Suggestion) -> list[str]:
         rows = [("inertia", m.inertia, f"{unit} s² per {fb}"),
                 ("viscous", m.viscous, f"{unit} s per {fb}"), ("coulomb", m.coulomb, unit)]
         form = "a mass with viscous and Coulomb friction, J y'' = u - B y' - Fc sign(y')"
+    elif m.form == "second":
+        rows = [("gain", m.gain, f"{fb}s per {unit}"), ("tau", m.tau, "s"),
+                ("tau2", m.tau2, "s")]
+        form = "second order, K/((tau s + 1)(tau2 s + 1))"
     else:
         rows = [("gain", m.gain, f"{fb}s per {unit}"), ("tau", m.tau, "s")]
         form = "first order, K/(tau s + 1)"

@@ -11,7 +11,8 @@ It may sit in the tolerance profile or the plan (any TOML file given to ``sugges
     delay = 1                   # loop periods between reading the feedback and applying
                                 #  the output computed from it (computation delay)
     plant = "position"          # "position" (the output drives a mass: an integrating loop),
-                                #  "process" (self-regulating) or "auto"
+                                #  "process" (self-regulating: first or second order) or
+                                #  "auto" (any of them)
     output_unit = "N"           # for display only
     [controller.limits]         # suggestions never leave these (gain units as the notes)
     kp = { min = 5, max = 40 }

@@ -33,7 +33,8 @@ __all__ = ["Identification", "identify"]
 
 FloatArray = NDArray[np.float64]
 
-_PARAMS = {"position": ("inertia", "viscous", "coulomb"), "process": ("gain", "tau")}
+_PARAMS = {"position": ("inertia", "viscous", "coulomb"), "process": ("gain", "tau"),
+           "second": ("gain", "tau", "tau2")}
 
 
 @dataclass(frozen=True)
@@ -67,6 +68,9 @@ def _model(form: str, p: FloatArray, dead: int) -> PlantModel:
     if form == "position":
         return PlantModel("position", inertia=math.exp(p[0]), viscous=math.exp(p[1]),
                           coulomb=max(p[2], 0.0), dead_ticks=dead)
+    if form == "second":
+        return PlantModel("second", gain=math.exp(p[0]), tau=math.exp(p[1]),
+                          tau2=math.exp(p[2]), dead_ticks=dead)
     return PlantModel("process", gain=math.exp(p[0]), tau=math.exp(p[1]), dead_ticks=dead)
 
 
@@ -159,6 +163,10 @@ def _start(form: str, records: Sequence[StepRecord], spec: ControllerSpec) -> Fl
         j0 = kp * (t50 / 1.6) ** 2
         grid = [np.array([math.log(j0 * f), math.log(j0 * f * b), 0.0] + [0.0] * n)
                 for f in (0.25, 0.5, 1.0, 2.0, 4.0) for b in (0.5, 5.0)]
+    elif form == "second":
+        grid = [np.array([math.log(g / kp), math.log(tau * t50), math.log(0.2 * tau * t50)]
+                         + [0.0] * n)
+                for g in (0.3, 1.0, 3.0, 10.0) for tau in (0.3, 1.0, 3.0)]
     else:
         grid = [np.array([math.log(g / kp), math.log(tau * t50)] + [0.0] * n)
                 for g in (0.3, 1.0, 3.0, 10.0) for tau in (0.3, 1.0, 3.0)]
@@ -216,7 +224,8 @@ def identify(records: Sequence[StepRecord], spec: ControllerSpec) -> Identificat
     if len(sets) < 2:
         raise ValueError(f"{len(sets)} gain set{'s' if len(sets) != 1 else ''} with usable"
                          " steps: a model needs steps under two gain sets or more")
-    forms = ("position", "process") if spec.plant == "auto" else (spec.plant,)
+    forms = {"auto": ("position", "process", "second"), "process": ("process", "second"),
+             "position": ("position",)}[spec.plant]
     y_all = np.concatenate([r.y / r.amplitude for r in records])
     ss_tot = float(np.sum((y_all - 1.0) ** 2))
     # forms and dead times compared on the first rise and swing (about eight times the

@@ -13,6 +13,8 @@ Plant forms (their parameters in output units, feedback units and seconds):
   tick is integrated exactly for the force held over it (zero-order hold); a velocity that
   would change sign within a tick stops.
 - ``process``: first order, K/(tau s + 1).
+- ``second``: second order with real poles, K/((tau s + 1)(tau2 s + 1)), each tick
+  integrated exactly (zero-order hold, the matrix exponential of scipy.linalg.expm).
 
 Both take an extra plant dead time of whole loop periods (``dead_ticks``) on top of the
 controller's declared computation delay. Pure numpy.
@@ -38,8 +40,8 @@ class PlantModel:
     """A plant of one form. ``position``: ``inertia`` J (output units x s^2 per feedback
     unit; a mass in kg when the output is N and the feedback m), ``viscous`` B (output
     units x s per feedback unit), ``coulomb`` Fc (output units). ``process``: ``gain`` K
-    (feedback units per output unit), ``tau`` (s). ``dead_ticks``: plant dead time, loop
-    periods."""
+    (feedback units per output unit), ``tau`` (s); ``second`` also ``tau2`` (s).
+    ``dead_ticks``: plant dead time, loop periods."""
 
     form: str
     inertia: float = 0.0
@@ -47,6 +49,7 @@ class PlantModel:
     coulomb: float = 0.0
     gain: float = 0.0
     tau: float = 0.0
+    tau2: float = 0.0
     dead_ticks: int = 0
 
 
@@ -65,6 +68,27 @@ class LoopResponse:
 
 def _lanes(x: float | FloatArray, n: int) -> FloatArray:
     return np.broadcast_to(np.asarray(x, dtype=float), (n,)).copy()
+
+
+def _second_order_hold(models: list[PlantModel], n: int, h: float
+                       ) -> tuple[FloatArray, FloatArray]:
+    """Per lane, the exact one-tick map of the lag cascade x1' = (K u - x1) / tau,
+    y' = (x1 - y) / tau2 for u held: (n, 2, 2) and (n, 2)."""
+    from scipy.linalg import expm
+
+    done: dict[tuple[float, float, float], tuple[FloatArray, FloatArray]] = {}
+    ad, bd = np.empty((n, 2, 2)), np.empty((n, 2))
+    for i in range(n):
+        p = models[i] if len(models) == n else models[0]
+        key = (p.gain, p.tau, p.tau2)
+        if key not in done:
+            m = np.zeros((3, 3))
+            m[0, 0], m[0, 2] = -1.0 / p.tau, p.gain / p.tau
+            m[1, 0], m[1, 1] = 1.0 / p.tau2, -1.0 / p.tau2
+            e = expm(m * h)  # [[Ad, Bd], [0, 1]]: the hold of the augmented system
+            done[key] = (e[:2, :2], e[:2, 2])
+        ad[i], bd[i] = done[key]
+    return ad, bd
 
 
 def simulate(plants: PlantModel | list[PlantModel], spec: ControllerSpec, gains: FloatArray,
@@ -112,6 +136,9 @@ def simulate(plants: PlantModel | list[PlantModel], spec: ControllerSpec, gains:
         xf = np.where(small, h * h / (2.0 * inertia),
                       (h - (1.0 - ea) / safe_a) / (safe_a * inertia))
         sticky = bool(np.any(fc > 0))
+    elif form == "second":
+        ad, bd = _second_order_hold(models, n, h)
+        lag = np.zeros(n)  # the first lag's output
     else:
         gain = np.array([p.gain for p in models]) * np.ones(n)
         tau = np.array([p.tau for p in models]) * np.ones(n)
@@ -153,6 +180,9 @@ def simulate(plants: PlantModel | list[PlantModel], spec: ControllerSpec, gains:
             else:
                 pos = pos + xv * vel + xf * force
                 vel = cv * vel + cf * force
+        elif form == "second":
+            lag, pos = (ad[:, 0, 0] * lag + ad[:, 0, 1] * pos + bd[:, 0] * force,
+                        ad[:, 1, 0] * lag + ad[:, 1, 1] * pos + bd[:, 1] * force)
         else:
             pos = ef * pos + gain * (1.0 - ef) * force
     return LoopResponse(y=ys, u=us, saturated=sat, period=h)

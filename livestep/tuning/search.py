@@ -118,8 +118,11 @@ def moved_models(ident: Identification) -> list[tuple[PlantModel, float]]:
         if stuck > 0:
             return [(m, 0.0), (faster, 0.0), (slower, 0.0), (m, stuck), (m, -stuck)]
     else:
-        faster = replace(m, gain=m.gain + share("gain"), tau=max(m.tau - share("tau"), 1e-6))
-        slower = replace(m, gain=max(m.gain - share("gain"), 1e-12), tau=m.tau + share("tau"))
+        second = m.form == "second"
+        faster = replace(m, gain=m.gain + share("gain"), tau=max(m.tau - share("tau"), 1e-6),
+                         tau2=max(m.tau2 - share("tau2"), 1e-6) if second else 0.0)
+        slower = replace(m, gain=max(m.gain - share("gain"), 1e-12), tau=m.tau + share("tau"),
+                         tau2=m.tau2 + share("tau2") if second else 0.0)
     return [(m, 0.0), (faster, 0.0), (slower, 0.0)]
 
 

@@ -46,12 +46,13 @@ def test_one_gain_set_cannot_identify():
 
 
 def fopdt_steps(k: float, tau: float, theta: float, spec: ControllerSpec,
-                gain_sets: list[tuple[float, float]]) -> list[StepRecord]:
-    """Unit steps of a PI loop around K e^(-theta s) / (tau s + 1), simulated with
-    python-control (zero-order-hold plant, theta a whole number of loop periods)."""
+                gain_sets: list[tuple[float, float]], tau2: float = 0.0) -> list[StepRecord]:
+    """Unit steps of a PI loop around K e^(-theta s) / ((tau s + 1)(tau2 s + 1)), simulated
+    with python-control (zero-order-hold plant, theta a whole number of loop periods)."""
     h = spec.period
     z = control.tf([1, 0], [1], h)
-    plant = control.ss(control.c2d(control.tf([k], [tau, 1]), h, "zoh")) \
+    den = np.polymul([tau, 1], [tau2, 1]) if tau2 else [tau, 1]
+    plant = control.ss(control.c2d(control.tf([k], den), h, "zoh")) \
         * control.ss(z ** (-round(theta / h)))
     out = []
     t = np.arange(int(6 * tau / h)) * h
@@ -89,3 +90,14 @@ def test_a_first_order_process_with_dead_time_is_recovered_and_gives_the_same_si
     kp0, ki0 = simc_pi(k, tau, theta)
     assert kp == pytest.approx(kp0, rel=0.08) and ki == pytest.approx(ki0, rel=0.08)
     assert math.isfinite(ident.relative("tau"))
+
+
+def test_a_second_order_process_is_told_from_a_first_order_one():
+    spec = ControllerSpec(rate=100, plant="process")
+    records = fopdt_steps(1.5, 1.2, 0.1, spec, [(0.6, 0.4), (1.2, 0.8)], tau2=0.4)
+    ident = identify(records, spec)
+    m = ident.model
+    assert m.form == "second"  # Akaike's criterion prefers it to first order
+    assert m.gain == pytest.approx(1.5, rel=0.05)
+    assert sorted([m.tau, m.tau2]) == pytest.approx([0.4, 1.2], rel=0.1)
+    assert {f for f, _, _ in ident.forms} == {"process", "second"}

@@ -16,7 +16,7 @@ H = 1.0 / 5000.0
 
 
 def reference(plant: control.TransferFunction, spec: ControllerSpec, kp: float, ki: float,
-              kd: float, ticks: int, amplitude: float) -> np.ndarray:
+              kd: float, ticks: int, amplitude: float, dead: int = 0) -> np.ndarray:
     """The closed loop built from transfer functions with python-control: the plant
     discretised with a zero-order hold, the integral as ki h / (z - 1) (the sum of past
     errors), the filtered backward-difference derivative alpha (z - 1) / (h (z - (1 -
@@ -28,7 +28,7 @@ def reference(plant: control.TransferFunction, spec: ControllerSpec, kp: float, 
         if spec.derivative_filter else 1.0  # z = 1 multiplied out lose digits
     c1 = control.ss(kp + ki * h / (z - 1))
     deriv = control.ss(kd * alpha * (z - 1) / (h * (z - (1 - alpha))))
-    fwd = pd * control.ss(z ** (-spec.delay))
+    fwd = pd * control.ss(z ** (-(spec.delay + dead)))
     if spec.derivative == "measurement":
         loop = control.feedback(fwd, c1 + deriv) * c1  # u = c1 e - deriv y
     else:
@@ -62,6 +62,16 @@ def test_process_loop_with_dead_time_matches_python_control():
     ref = control.forced_response(control.feedback(plant * c, 1),
                                   np.arange(ticks) * spec.period, np.ones(ticks)).outputs
     assert np.max(np.abs(ours - ref)) < 1e-8
+
+
+def test_second_order_process_loop_matches_python_control():
+    spec = ControllerSpec(rate=200, derivative="error", derivative_filter=20, delay=1)
+    ticks = 1200
+    ours = simulate(PlantModel("second", gain=1.5, tau=0.9, tau2=0.25, dead_ticks=4), spec,
+                    np.array([[1.2, 0.8, 0.1]]), 2.0, ticks).y[0]
+    ref = reference(control.tf([1.5], np.polymul([0.9, 1], [0.25, 1])), spec, 1.2, 0.8, 0.1,
+                    ticks + 4, 2.0, dead=4)[:ticks]
+    assert np.max(np.abs(ours - ref)) < 1e-8 * 2.0
 
 
 def test_output_limit_clips_and_is_reported():
