@@ -135,7 +135,11 @@ class SuggestionTracker:
         return arrived
 
     def close(self) -> None:
+        """Stop the worker at once: a computation under way is not waited for."""
         if self._pool is not None:
+            # the executor has no public way to end a running task before Python 3.14
+            for proc in list(getattr(self._pool, "_processes", {}).values()):
+                proc.terminate()
             self._pool.shutdown(wait=False, cancel_futures=True)
             self._pool = None
 
