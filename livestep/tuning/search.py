@@ -292,6 +292,7 @@ def search_gains(ident: Identification, spec: ControllerSpec, profile: Profile,
                                  seed=seed, polish=False, init="latinhypercube")
     best = gains_of(np.asarray(sol.x)[:, None])[0]
     rounded = np.array([float(f"{x:.3g}") for x in best])  # gains as a person types them
+    rounded = np.clip(rounded, [lo for lo, _ in space.bounds], [hi for _, hi in space.bounds])
     both = ev.run(np.stack([rounded, best]))
     for g, per in zip((rounded, best), both, strict=True):
         pred = ev.prediction(g, per)
