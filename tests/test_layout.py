@@ -110,6 +110,7 @@ def test_the_core_loads_no_io_or_ui_library() -> None:
     code = ("import sys, json, livestep.steps, livestep.judge\n"
             "import livestep.steps.analysis, livestep.judge.verdict, livestep.judge.design\n"
             "import livestep.judge.statistics, livestep.judge.compare\n"
+            "import livestep.tuning.suggest\n"
             "print(json.dumps(sorted(sys.modules)))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          check=True, cwd=ROOT).stdout
