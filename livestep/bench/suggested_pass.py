@@ -126,6 +126,8 @@ class SuggestedPass:
 
     def end(self, reason: str) -> None:
         self.runner.end(reason)
+        if self.report_lines:  # the verdict last, where the message line keeps it
+            self.out(self.report_lines[-1])
 
     @property
     def exit_status(self) -> int:
@@ -190,5 +192,5 @@ class SuggestedPass:
         self.agreed, lines = compare_pass(self.suggestion, [r for r, _ in pairs],
                                           [v for _, v in pairs])
         self.report_lines = lines
-        for line in lines:
+        for line in lines[:-1]:  # the verdict line follows at the end (see end())
             self.out(line)
