@@ -11,7 +11,8 @@ the loop faster and slower.
 
 The search (:func:`search_gains`) runs :func:`scipy.optimize.differential_evolution` over
 the gains (log scale, inside the user's ``[controller.limits]`` and near the measured gain
-sets), every population member simulated at once. A candidate must keep every profile
+sets), every population member simulated at once, starting from the best points of a grid
+judged on the nominal model. A candidate must keep every profile
 limit with its warning margin (at least :data:`MIN_MARGIN` of the limit) on the nominal
 and both moved models, keep its output below :data:`OUTPUT_SHARE` of the declared limit,
 and among those the fastest settling (then rise) wins. Pure numpy/scipy.
@@ -19,6 +20,7 @@ and among those the fastest settling (then rise) wins. Pure numpy/scipy.
 
 from __future__ import annotations
 
+import copy
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
@@ -45,6 +47,7 @@ MIN_SPREAD = 0.05  # the least relative parameter change a prediction's spread a
 MIN_MARGIN = 0.10  # the least margin kept to a limit, as a share of the limit
 OUTPUT_SHARE = 0.8  # a suggestion's predicted peak output stays below this share of the limit
 WIDEN = 2.0  # the search stays within this factor of the measured gains
+GRID = 6  # grid points per gain of the first look
 FRAGILE = 0.05  # the most settling may move (share of the horizon) when the band changes
 
 
@@ -162,6 +165,12 @@ class _Evaluator:
                                                                  settling_band=band),
                                          keep_windows=True)
 
+    def nominal_only(self) -> _Evaluator:
+        """The same evaluator on the nominal model alone."""
+        other = copy.copy(self)
+        other.models = self.models[:1]
+        return other
+
     def run(self, gains: FloatArray) -> list[list[tuple[StepResult, float]]]:
         """Per gain set, per model: the measured predicted step and the peak output."""
         g = np.asarray(gains, dtype=float)
@@ -268,10 +277,10 @@ def search_gains(ident: Identification, spec: ControllerSpec, profile: Profile,
         g[:, free] = np.exp(x.T)
         return g
 
-    def cost(x: FloatArray) -> FloatArray:
+    def cost(x: FloatArray, evaluator: _Evaluator = ev) -> FloatArray:
         g = gains_of(np.atleast_2d(x.T).T if x.ndim == 1 else x)
         out = []
-        for per in ev.run(g):
+        for per in evaluator.run(g):
             bad = sum(ev.violation(r, p) for r, p in per)
             fragile = max(ev.fragility(r) for r, _ in per)
             settle = [r.metrics.settling_time if r.metrics.settled else horizon
@@ -279,7 +288,7 @@ def search_gains(ident: Identification, spec: ControllerSpec, profile: Profile,
             rise = per[0][0].metrics.rise_time or horizon
             spread = (max(settle) - min(settle)) / horizon
             out.append(10.0 * (bad + max(fragile - FRAGILE, 0.0))
-                       + (rise + 0.3 * settle[0]) / horizon + spread)
+                       + (rise + 0.1 * settle[0]) / horizon + spread)
         return np.array(out)
 
     if not free:
@@ -287,9 +296,16 @@ def search_gains(ident: Identification, spec: ControllerSpec, profile: Profile,
                         sample_period=sample_period, span=span)
         return preds[0] if preds[0].meets else None
     bounds = [(math.log(space.bounds[i][0]), math.log(space.bounds[i][1])) for i in free]
+    # the first population: the best points of a grid judged on the nominal model alone
+    # (one cheap run), so a narrow region of fast, feasible gains is not missed
+    members = max(6, 24 // len(free)) * len(free)
+    axes = [np.linspace(lo, hi, GRID) for lo, hi in bounds]
+    grid = np.array(np.meshgrid(*axes, indexing="ij")).reshape(len(free), -1)
+    order = np.argsort(cost(grid, ev.nominal_only()), kind="stable")
+    init = grid[:, order[:members]].T
     sol = differential_evolution(cost, bounds, vectorized=True, updating="deferred",
                                  popsize=max(6, 24 // len(free)), maxiter=12, tol=1e-3,
-                                 seed=seed, polish=False, init="latinhypercube")
+                                 seed=seed, polish=False, init=init)
     best = gains_of(np.asarray(sol.x)[:, None])[0]
     rounded = np.array([float(f"{x:.3g}") for x in best])  # gains as a person types them
     rounded = np.clip(rounded, [lo for lo, _ in space.bounds], [hi for _, hi in space.bounds])
