@@ -25,11 +25,14 @@ ALLOWED: dict[str, set[str]] = {
     "decode": {"steps"},
     "sources": {"steps", "decode"},
     "sinks": {"steps", "judge", "decode", "reports"},
-    "reports": {"steps", "judge", "decode", "sources"},
+    "tuning": {"steps", "judge"},
+    "reports": {"steps", "judge", "decode", "sources", "tuning"},
     "live": {"steps", "judge", "decode", "sources", "sinks", "reports"},
-    "bench": {"steps", "judge", "decode", "sources", "sinks", "live"},
-    "tui": {"steps", "judge", "decode", "sources", "sinks", "reports", "live", "bench"},
-    "cli": {"steps", "judge", "decode", "sources", "sinks", "reports", "live", "bench", "tui"},
+    "bench": {"steps", "judge", "decode", "sources", "sinks", "live", "tuning"},
+    "tui": {"steps", "judge", "decode", "sources", "sinks", "reports", "live", "bench",
+            "tuning"},
+    "cli": {"steps", "judge", "decode", "sources", "sinks", "reports", "live", "bench", "tui",
+            "tuning"},
 }
 
 
@@ -107,6 +110,7 @@ def test_the_core_loads_no_io_or_ui_library() -> None:
     code = ("import sys, json, livestep.steps, livestep.judge\n"
             "import livestep.steps.analysis, livestep.judge.verdict, livestep.judge.design\n"
             "import livestep.judge.statistics, livestep.judge.compare\n"
+            "import livestep.tuning.suggest\n"
             "print(json.dumps(sorted(sys.modules)))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          check=True, cwd=ROOT).stdout

@@ -19,13 +19,15 @@ from __future__ import annotations
 
 import sys
 import threading
-from collections.abc import Sequence
+import tomllib
+from collections.abc import Callable, Sequence
 from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
 from livestep.bench.device import BenchSettings, VirtualBench, clock_start_for
 from livestep.bench.plants import AxisParams, AxisPlant, Gains
+from livestep.bench.suggested_pass import SuggestedPass
 from livestep.decode.timebase import ClockSettings
 from livestep.judge.profile import Profile, parse_profile
 from livestep.live.plan import Plan, parse_plan
@@ -35,9 +37,10 @@ from livestep.live.session import Decoder, make_decoder
 from livestep.sinks.base import Sink
 from livestep.sources.serial_port import PortSettings
 from livestep.steps.analysis import AnalysisSettings
+from livestep.tuning.controller import ControllerSpec, parse_controller
 
-__all__ = ["DEMO_PLAN", "DEMO_PROFILE_TOML", "demo_bench", "demo_decoder", "demo_plan",
-           "demo_profile", "run_demo"]
+__all__ = ["DEMO_PLAN", "DEMO_PROFILE_TOML", "demo_bench", "demo_controller", "demo_decoder",
+           "demo_driver", "demo_plan", "demo_profile", "run_demo"]
 
 #: The built-in plan: 5 mm moves of the transfer axis, retuned twice (positions in mm; kp
 #: N/mm, ki N/(mm s), kd N s/mm). Invented.
@@ -68,6 +71,19 @@ overshoot_pct = { max = 20, warn = 5 }      # % of the step
 settling_time = { max = 0.600 }             # seconds, +-2 % band
 steady_state_error_pct = { max = 5, warn = 2 }   # % of the setpoint change
 zeta = { min = 0.45 }                       # fitted damping ratio
+
+[controller]                                # the bench firmware's loop, as declared
+rate = 5000                                 # Hz
+derivative = "measurement"
+derivative_filter = 400                     # Hz
+output_limit = 250                          # N
+delay = 1                                   # loop periods
+plant = "position"
+output_unit = "N"
+[controller.limits]
+kp = { min = 5, max = 40 }
+ki = { min = 0, max = 200 }
+kd = { min = 0.05, max = 0.6 }
 """
 
 #: The gains the axis powers up with (the first set of the plan).
@@ -107,6 +123,29 @@ def demo_profile() -> Profile:
     return parse_profile(DEMO_PROFILE_TOML, source="built-in demo spec")
 
 
+def demo_controller() -> ControllerSpec:
+    """The bench's control law, from the ``[controller]`` section of the demo spec."""
+    spec = parse_controller(tomllib.loads(DEMO_PROFILE_TOML), "built-in demo spec")
+    assert spec is not None
+    return spec
+
+
+def demo_driver(quick: bool = False, profile: Profile | None = None, *,
+                out: Callable[[str], None] | None = None) -> PlanRunner | SuggestedPass:
+    """What sends the demo's commands: the built-in plan, then (not ``quick``: the
+    suggestion takes some seconds) a fourth pass with the gains suggested from the first
+    three (:class:`~livestep.bench.suggested_pass.SuggestedPass`)."""
+    say = out if out is not None else _stderr
+    if quick:
+        return PlanRunner(demo_plan(True), out=say)
+    return SuggestedPass(DEMO_PLAN, profile if profile is not None else demo_profile(),
+                         demo_controller(), out=say, source="built-in demo plan")
+
+
+def _stderr(line: str) -> None:
+    print(line, file=sys.stderr, flush=True)
+
+
 def demo_bench(*, fmt: str = "text", rate: float = DEMO_RATE, seed: int = 1) -> VirtualBench:
     """The virtual carton transfer axis (not started), its clock wrapping after 3 s."""
     plant = AxisPlant(AxisParams(gains=DEMO_START_GAINS), seed=seed)
@@ -133,14 +172,18 @@ def run_demo(*, quick: bool = False, record: Path | None = None, fmt: str = "tex
     path = bench.start()
     plan = demo_plan(quick)
     print(f"livestep demo: virtual bench on {path} (simulated, no hardware); sending the"
-          f" built-in plan, {len(plan.commands)} commands over {plan.duration:.0f} s",
+          f" built-in plan, {len(plan.commands)} commands over {plan.duration:.0f} s"
+          + (" (--quick: no fourth pass with suggested gains)" if quick
+             else ", then a fourth pass with the gains livestep suggests"),
           file=sys.stderr, flush=True)
+    profile = profile if profile is not None else demo_profile()
     try:
         return run_live(PortSettings(url=path), demo_decoder(),
-                        settings if settings is not None else AnalysisSettings(),
+                        replace(settings if settings is not None else AnalysisSettings(),
+                                keep_windows=True),  # the suggestion fits the samples
                         record=record, json_lines=json_lines, sinks=sinks,
-                        print_steps=print_steps, driver=PlanRunner(plan),
+                        print_steps=print_steps, driver=demo_driver(quick, profile),
                         source=f"livestep demo (virtual bench on {path})", stop=stop,
-                        profile=profile if profile is not None else demo_profile())
+                        profile=profile)
     finally:
         bench.stop()

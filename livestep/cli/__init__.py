@@ -13,7 +13,7 @@ import sys
 from collections.abc import Sequence
 
 from livestep import __version__
-from livestep.cli import bench, live, offline
+from livestep.cli import bench, live, offline, tuning
 from livestep.cli.options import Parser, add_output_options
 from livestep.errors import EXIT_INTERRUPTED, EXIT_OK, InputError, one_line
 from livestep.sinks.terminal import set_color_mode
@@ -30,6 +30,7 @@ def build_parser() -> argparse.ArgumentParser:
     offline.add_parsers(sub)
     live.add_parsers(sub)
     bench.add_parsers(sub)
+    tuning.add_parsers(sub)
     for command in sub.choices.values():  # every command, the same output options
         add_output_options(command)
     return p

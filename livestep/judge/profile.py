@@ -113,7 +113,7 @@ class Profile:
 
 
 _TOP_KEYS = {"name", "description", "settling_band", "rise_levels", "warn_pct", "limits",
-             "when"}
+             "when", "controller"}  # [controller]: read by livestep.tuning.controller
 _RULE_KEYS = {"name", "direction", "size_min", "size_max", "tag", "limits"}
 _LIMIT_KEYS = {"min", "max", "warn"}
 

@@ -63,7 +63,7 @@ __all__ = ["MAX_COMMANDS", "Limits", "Plan", "PlanCommand", "check_sendable", "d
 MAX_COMMANDS = 100_000
 
 _TOP = {"levels", "dwell", "repeats", "rest", "lead_in", "gain_settle", "limits", "commands",
-        "gains"}
+        "gains", "controller"}  # [controller]: read by livestep.tuning.controller
 
 
 @dataclass(frozen=True)

@@ -40,7 +40,9 @@ from livestep.steps.tags import parse_notes
 from livestep.tui import views
 from livestep.tui.overlay import OVERLAY_MODES, gain_summary, overlay_plot
 from livestep.tui.plot import Plot
+from livestep.tui.suggestion_view import SuggestionScreen, SuggestionTracker, controller_of
 from livestep.tui.zoom import channel_plot, error_zoom_plot
+from livestep.tuning.controller import ControllerSpec
 
 __all__ = ["LivestepApp", "run_app", "save_report"]
 
@@ -201,6 +203,8 @@ class LivestepApp(App[int]):
                 tooltip="show the next step of the history"),
         Binding("end,l", "follow", "live", key_display="end/l",
                 tooltip="follow the stream: newest step, current samples"),
+        Binding("t", "suggestion", "gains", tooltip="gain suggestion: trends across gain sets,"
+                " and gains to try with a [controller] section (nothing is sent)"),
         Binding("plus,equals_sign", "faster", "faster", key_display="+", show=False,
                 tooltip="replay: twice as fast"),
         Binding("minus", "slower", "slower", key_display="-", show=False,
@@ -210,9 +214,13 @@ class LivestepApp(App[int]):
     ]
 
     def __init__(self, watch: Watch, *, report_folder: Path | None = None,
-                 quit_on_sigterm: bool = False, demo: bool = False) -> None:
+                 quit_on_sigterm: bool = False, demo: bool = False,
+                 controller: ControllerSpec | None = None) -> None:
         super().__init__()
         self.demo = demo
+        spec, why = (controller, "") if controller is not None else controller_of(watch.profile)
+        self.tracker = SuggestionTracker(watch.profile, spec, why, extra=lambda: getattr(
+            watch.driver, "report_lines", []))  # the demo's fourth pass, once it has run
         self.quit_on_sigterm = quit_on_sigterm
         self.link = watch
         self.report_folder = report_folder or Path.cwd()
@@ -270,6 +278,7 @@ class LivestepApp(App[int]):
         self.frame()
 
     def on_unmount(self) -> None:
+        self.tracker.close()
         self.link.stop()
         self.link.wait(5.0)
 
@@ -283,6 +292,7 @@ class LivestepApp(App[int]):
         snap = self.link.snapshot()
         self.snap = snap
         self.frames += 1
+        self.tracker.poll(snap.steps)
         try:
             self._frame(snap)
         except NoMatches:  # a timer firing while the screen is torn down
@@ -451,8 +461,8 @@ class LivestepApp(App[int]):
 
     def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
         """A row the user clicked (the app's own cursor moves are not choices)."""
-        table = self.query_one(History)
-        if table.clicked:
+        table = event.data_table  # not a query: another screen (a note) may be on top
+        if isinstance(table, History) and table.clicked:
             table.clicked = False
             self._select(event.cursor_row)
 
@@ -544,6 +554,9 @@ class LivestepApp(App[int]):
                  "side panel: the step")
         self._redraw()
 
+    def action_suggestion(self) -> None:
+        self.push_screen(SuggestionScreen(self.tracker))
+
     def action_note(self) -> None:
         self.push_screen(NoteScreen(), self._add_note)
 
@@ -584,8 +597,13 @@ def run_demo_app(*, quick: bool = False, record: Path | None = None, fmt: str = 
     sent by a plan runner (its progress on the message line), each step judged against
     ``profile`` (default: the built-in demo spec), everything else as live; reports saved
     with ``s`` go into ``folder`` (default: the recording's folder, else the current one)."""
-    from livestep.bench.demo import demo_bench, demo_decoder, demo_plan, demo_profile
-    from livestep.live.plan_run import PlanRunner
+    from livestep.bench.demo import (
+        demo_bench,
+        demo_controller,
+        demo_decoder,
+        demo_driver,
+        demo_profile,
+    )
     from livestep.live.run import metadata_for
     from livestep.sources.serial_port import PortSettings, SerialReader
 
@@ -595,23 +613,26 @@ def run_demo_app(*, quick: bool = False, record: Path | None = None, fmt: str = 
         name = f"livestep demo (virtual bench on {path})"
         decoder = demo_decoder()
         holder: list[Watch] = []
-        runner = PlanRunner(demo_plan(quick), out=lambda line: holder[0].say(line))
+        profile = profile if profile is not None else demo_profile()
+        runner = demo_driver(quick, profile, out=lambda line: holder[0].say(line))
         watch = Watch(SerialReader(PortSettings(url=path)), decoder,
                       settings if settings is not None else AnalysisSettings(),
                       source_name=name, record=record, metadata=metadata_for(name, decoder),
-                      driver=runner, profile=profile if profile is not None else demo_profile())
+                      driver=runner, profile=profile)
         holder.append(watch)
         status = run_app(watch, report_folder=folder or (record.parent if record else None),
-                         demo=True)
+                         demo=True, controller=demo_controller())
         return status if status != EXIT_OK else runner.exit_status
     finally:
         bench.stop()
 
 
-def run_app(watch: Watch, *, report_folder: Path | None = None, demo: bool = False) -> int:
+def run_app(watch: Watch, *, report_folder: Path | None = None, demo: bool = False,
+            controller: ControllerSpec | None = None) -> int:
     """Run the UI on the terminal until the user quits; returns the exit status."""
     watch.start()  # a port that cannot be opened fails here, as one line
-    app = LivestepApp(watch, quit_on_sigterm=True, report_folder=report_folder, demo=demo)
+    app = LivestepApp(watch, quit_on_sigterm=True, report_folder=report_folder, demo=demo,
+                      controller=controller)
     try:
         status = app.run()
     finally:
