@@ -108,6 +108,14 @@ def test_confirmation_needs_yes():
                          interactive=True)
 
 
+def _interruptible() -> None:
+    """In the child: SIGINT as a terminal gives it (default, unblocked), whatever the test
+    process inherited: a suite started in the background by a non-interactive shell has
+    SIGINT ignored, which passes through exec, so the command never saw the interrupt."""
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+    signal.pthread_sigmask(signal.SIG_UNBLOCK, [signal.SIGINT])
+
+
 def test_safe_command_on_ctrl_c(tmp_path):
     plan = tmp_path / "plan.toml"
     plan.write_text('levels = [1.0, 0.0, 1.0, 0.0, 1.0]\ndwell = 0.5\nrest = 0.0\n'
@@ -117,7 +125,8 @@ def test_safe_command_on_ctrl_c(tmp_path):
         proc = subprocess.Popen(
             [sys.executable, "-m", "livestep", "live", b.path, "--plan", str(plan), "--send",
              "--no-confirm", "--no-record", "--time-unit", "us", "--wrap", "32"],
-            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=ROOT)
+            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=ROOT,
+            preexec_fn=_interruptible)
         seen = []
         deadline = time.monotonic() + 30
         while time.monotonic() < deadline:
