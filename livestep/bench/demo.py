@@ -139,7 +139,7 @@ def demo_driver(quick: bool = False, profile: Profile | None = None, *,
     if quick:
         return PlanRunner(demo_plan(True), out=say)
     return SuggestedPass(DEMO_PLAN, profile if profile is not None else demo_profile(),
-                         demo_controller(), out=say, source="built-in demo plan")
+                         demo_controller(), out=say, plan=demo_plan())
 
 
 def _stderr(line: str) -> None:

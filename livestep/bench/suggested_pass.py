@@ -20,7 +20,7 @@ import numpy as np
 
 from livestep.judge.profile import Profile
 from livestep.judge.quantities import display_unit, value_of
-from livestep.live.plan import parse_plan
+from livestep.live.plan import Plan, parse_plan
 from livestep.live.plan_run import Link, PlanRunner
 from livestep.live.session import Session
 from livestep.tuning.controller import ControllerSpec
@@ -65,12 +65,16 @@ def compare_pass(suggestion: Suggestion, steps: list[Any], verdicts: list[Any]
 
 class SuggestedPass:
     """The base plan, then a pass with suggested gains (see the module docstring).
-    ``doc``: the base plan's document; ``out`` gets one line per event."""
+    ``doc``: the base plan's document (its levels and dwell also make the fourth pass);
+    ``plan``: the base plan to send, when it is more than ``doc`` gives (the demo's long
+    move); ``out`` gets one line per event."""
 
     def __init__(self, doc: dict[str, Any], profile: Profile, controller: ControllerSpec, *,
-                 out: Callable[[str], None], source: str = "demo plan") -> None:
+                 out: Callable[[str], None], source: str = "demo plan",
+                 plan: Plan | None = None) -> None:
         self.doc, self.profile, self.controller, self.out = doc, profile, controller, out
-        self.runner = PlanRunner(parse_plan(doc, source=source), out=out)
+        self.runner = PlanRunner(plan if plan is not None else parse_plan(doc, source=source),
+                                 out=out)
         self.phase = "base"  # base, settling, thinking, fourth, closing, done
         self.suggestion: Suggestion | None = None
         self.agreed: bool | None = None
@@ -147,6 +151,9 @@ class SuggestedPass:
                 self.suggestion = suggest(results, self.profile, self.controller)
             except Exception as exc:  # noqa: BLE001 - the demo goes on without a fourth pass
                 self.out(f"demo: no suggestion: {type(exc).__name__}: {exc}")
+                return
+            for step, why in self.suggestion.excluded:  # the long move, at the drive's limit
+                self.out(f"demo: step {step} {why}")
 
         self._thread = threading.Thread(target=work, name="livestep-suggest", daemon=True)
         self._thread.start()
