@@ -181,8 +181,13 @@ class SuggestedPass:
         doc["lead_in"] = 0.2
         plan = parse_plan(doc, source="demo: fourth pass")
         self._expected = sum(1 for c in plan.commands if c.kind == "setpoint")
-        self.runner = PlanRunner(plan, out=self.out)
         assert self._link is not None and self._session is not None
+        # A tag of the base plan the fourth pass does not set (the long move's) ends here.
+        ended = ({n for c in self.runner.plan.commands for n, _ in c.tags}
+                 - {n for c in plan.commands for n, _ in c.tags})
+        for name in sorted(ended):
+            self._session.add_note(name, "")
+        self.runner = PlanRunner(plan, out=self.out)
         self.runner.begin(self._link, self._session)
         self.phase = "fourth"
         return False
