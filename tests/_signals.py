@@ -274,3 +274,17 @@ BENCH = dict(noise=1e-3, quantum=1e-3, jitter=0.25, drop=0.02)  # + a few ms of 
 HEAVY = dict(noise=1e-2)
 # Noise realisations per impaired case: every case runs on all of them (no seed picking).
 NOISE_SEEDS = (1, 2, 3, 4, 5, 6)
+
+
+def lsim_staircase(zeta: float, levels: list[float], *, rate: float, hold: float = 1.5,
+                   wn: float = 30.0, noise: float = 0.0,
+                   seed: int = 0) -> tuple[FloatArray, FloatArray, FloatArray]:
+    """(t, setpoint, feedback): the setpoint held at each of ``levels`` for ``hold`` s, the
+    loop wn^2 / (s^2 + 2 zeta wn s + wn^2) simulated by scipy.signal.lsim (a reference
+    outside the project), white noise of sigma ``noise`` on the feedback."""
+    n = int(hold * rate)
+    t = np.arange(n * len(levels)) / rate
+    sp = np.repeat(levels, n).astype(float)
+    sys_ = signal.TransferFunction([wn * wn], [1.0, 2 * zeta * wn, wn * wn])
+    _, y, _ = signal.lsim(sys_, sp - sp[0], t)
+    return t, sp, sp[0] + y + np.random.default_rng(seed).normal(0, noise, t.size)

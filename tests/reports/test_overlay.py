@@ -5,7 +5,7 @@ from __future__ import annotations
 from dataclasses import replace
 
 import numpy as np
-from scipy import signal
+from _signals import lsim_staircase
 
 from livestep.reports.overlay import overlay_groups
 from livestep.reports.plots import overlay_figure
@@ -21,12 +21,7 @@ def _session(zetas: list[float], levels: list[float]):
     step; the steps tagged gains=z<zeta>."""
     results = []
     for zeta in zetas:
-        n = int(1.5 * RATE)
-        t = np.arange(n * len(levels)) / RATE
-        sp = np.repeat(levels, n).astype(float)
-        sys_ = signal.TransferFunction([900.0], [1.0, 2 * zeta * 30.0, 900.0])
-        _, y, _ = signal.lsim(sys_, sp - sp[0], t)
-        y = sp[0] + y + np.random.default_rng(4).normal(0, 1e-3, t.size)
+        t, sp, y = lsim_staircase(zeta, levels, rate=RATE, noise=1e-3, seed=4)
         for r in analyze_chunks([SampleChunk(t=t, setpoint=sp, feedback=y)],
                                 AnalysisSettings(keep_windows=True)):
             results.append(replace(r, tags=(("gains", f"z{zeta:g}"),)))

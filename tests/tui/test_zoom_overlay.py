@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy import signal
+from _signals import lsim_staircase
 
 from livestep.live.watch import StepEntry
 from livestep.steps.analysis import AnalysisSettings, analyze_chunks
@@ -18,12 +18,7 @@ RATE = 1000.0
 def _entries(zeta: float, levels: list[float], tag: str) -> list[StepEntry]:
     """Steps through ``levels`` (1.5 s each) of wn^2 / (s^2 + 2 zeta wn s + wn^2), wn 30
     rad/s, simulated by scipy.signal.lsim."""
-    n = int(1.5 * RATE)
-    t = np.arange(n * len(levels)) / RATE
-    sp = np.repeat(levels, n).astype(float)
-    sys_ = signal.TransferFunction([900.0], [1.0, 2 * zeta * 30.0, 900.0])
-    _, y, _ = signal.lsim(sys_, sp - sp[0], t)
-    y = sp[0] + y + np.random.default_rng(2).normal(0, 1e-4, t.size)
+    t, sp, y = lsim_staircase(zeta, levels, rate=RATE, noise=1e-4, seed=2)
     from dataclasses import replace
 
     return [StepEntry(replace(r, tags=(("gains", tag), ("plan_entry", str(k)))))
