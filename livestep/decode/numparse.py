@@ -89,13 +89,11 @@ def _cell_by_cell(block: bytes, nlines: int, ncol: int) -> np.ndarray | None:
 
 def _library(block: bytes, nlines: int, ncol: int) -> np.ndarray | None:
     """pandas' C parser on a block of plain-decimal lines (``None`` if it refuses a cell or
-    a row; our own parser when pandas is missing). It reads such cells as ``float()``
-    does; the tests check it bit for bit (``tests/decode/test_numparse.py``). Plain text
-    has no ``nan``, so a NaN can only be a missing cell."""
-    try:
-        import pandas as pd
-    except ImportError:  # pragma: no cover - pandas is a dependency; our own parser remains
-        return _vectorised(block, nlines, ncol)
+    a row). It reads such cells as ``float()`` does; the tests check it bit for bit
+    (``tests/decode/test_numparse.py``). Plain text has no ``nan``, so a NaN can only be a
+    missing cell. pandas is imported here, on the first large block of a recording."""
+    import pandas as pd
+
     try:
         frame = pd.read_csv(io.BytesIO(block), header=None, names=range(ncol),
                             dtype=np.float64, engine="c", na_filter=False,

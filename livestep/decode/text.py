@@ -110,7 +110,7 @@ class TextDecoder:
         self._pairs = False
         self._roles: tuple[int | None, int, int | None] | None = None
         self._extra: list[tuple[str, int]] = []
-        self._role_list: list[int] | None = None
+        self._role_list: list[int] = []  # the indices of time, feedback, setpoint present
         self._header_line: bytes | None = None
         self._note_col: int | None = None  # index of a note column among the cells
         self._ncells = 0  # cells per line, note column included
@@ -257,7 +257,7 @@ class TextDecoder:
         self._layout = layout
         self._pairs, self._delim, self.columns = layout.pairs, layout.delim, layout.columns
         self._roles, self._extra = layout.roles, layout.extra
-        self._role_list = None
+        self._role_list = [i for i in layout.roles if i is not None]
         self._header_line, self._note_col = layout.header_line, layout.note_col
         self._ncells = layout.ncells
         self.decision = layout.decision
@@ -451,8 +451,6 @@ class TextDecoder:
 
     def _role_indices(self) -> list[int]:
         assert self._roles is not None
-        if self._role_list is None:
-            self._role_list = [i for i in self._roles if i is not None]
         return self._role_list
 
     def _not_data(self, line: bytes) -> None:
@@ -496,12 +494,11 @@ class TextDecoder:
                ) -> tuple[list[SampleChunk], NDArray[np.intp], NDArray[np.float64]]:
         """(the chunks of the valid rows, stamped; the indices of the rows kept, when
         ``want_rows``; their times)."""
-        none = _NO_ROWS
         if data.shape[0] == 0:
-            return [], *none
+            return [], *_NO_ROWS
         ti, fi, si = self._roles  # type: ignore[misc]
         roles = self._role_indices()
-        rows = np.arange(data.shape[0]) if want_rows else none[0]
+        rows = np.arange(data.shape[0]) if want_rows else _NO_ROWS[0]
         role_data = data if len(roles) == data.shape[1] else data[:, roles]
         if not np.isfinite(role_data.sum()):  # one cheap test for the usual case
             finite = np.isfinite(role_data).all(axis=1)
@@ -509,7 +506,7 @@ class TextDecoder:
             data = data[finite]
             rows = rows[finite] if want_rows else rows
         if data.shape[0] == 0:
-            return [], *none
+            return [], *_NO_ROWS
         stamped = self.timebase.stamp(data[:, ti] if ti is not None else None, data.shape[0])
         if stamped.t.size != data.shape[0]:
             data = data[stamped.keep]

@@ -142,8 +142,6 @@ class Timebase:
                 return self._stamp_few(rl)
         prev = self._last_raw if self._last_raw is not None else raw[0]
         d = _diff_from(prev, raw)
-        if self._period is not None and self._last_raw is not None and d.min() > 0.0:
-            return self._stamp_increasing(raw)
         if self._last_raw is None:
             self._origin_raw = raw[0]
             self._origin_t = 0.0
@@ -191,20 +189,11 @@ class Timebase:
         self._last_t = float(t[-1]) if t.size else self._last_t
         return Stamped(t, keep, starts)
 
-    def _stamp_increasing(self, raw: NDArray[np.float64]) -> Stamped:
-        """:meth:`_stamp` in the usual case, with a fraction of its work (a small serial
-        read is a few samples, where each numpy call costs more than the samples): the
-        period fixed, the times increasing (no wrap, restart or repeat). The same
-        arithmetic, so the same seconds to the bit."""
-        t = self._origin_t + (raw + self._offset - self._origin_raw) * self._scale
-        d = _diff_from(self._last_t, t)
-        self.counters.gaps += int(np.count_nonzero(d > 1.5 * self._period))
-        self._last_raw, self._last_t = float(raw[-1]), float(t[-1])
-        return Stamped(t, np.ones(raw.size, dtype=bool), [])
-
     def _stamp_few(self, raw: list[float]) -> Stamped:
-        """:meth:`_stamp_increasing` for a few samples, in Python floats (the same IEEE
-        operations in the same order, so the same seconds), as a small read brings."""
+        """:meth:`_stamp` in the usual case of a small read: the period fixed, a few samples
+        whose times increase (no wrap, restart or repeat), stamped in Python floats (numpy's
+        fixed cost per call exceeds the samples' own): the same IEEE operations in the same
+        order, so the same seconds to the bit."""
         o_t, off, sc = float(self._origin_t), float(self._offset), float(self._scale)
         o_r = float(self._origin_raw)  # numpy scalars would make numpy counts below
         t = [o_t + (x + off - o_r) * sc for x in raw]

@@ -328,7 +328,8 @@ class RecordingReader:
         if b"#" in block:  # comment and note lines out, so the rest parses in one pass
             block, comments = split_off_lines(block, COMMENT_START)
             if comments:
-                self._comments(comments)
+                for _, raw in comments:
+                    self._comment(raw)
                 linenos = np.delete(linenos, [n + j for j, (n, _) in enumerate(comments)])
                 nlines = linenos.size
                 if nlines == 0:
@@ -377,13 +378,12 @@ class RecordingReader:
             extras={n: np.ascontiguousarray(data[:, i])
                     for n, i in zip(self.extra_names, self._extra_idx, strict=True)})
 
-    def _comments(self, lines: list[tuple[int, bytes]]) -> None:
-        """``#`` lines among the data: not rows; a recorded note is kept."""
-        for _, raw in lines:
-            self.stats.rows -= 1
-            note = parse_recorded_note(raw.decode("utf-8", "replace").strip())
-            if note is not None:
-                self._add_note(note)
+    def _comment(self, raw: bytes) -> None:
+        """A ``#`` (or blank) line among the data: not a row; a recorded note is kept."""
+        self.stats.rows -= 1
+        note = parse_recorded_note(raw.decode("utf-8", "replace").strip())
+        if note is not None:
+            self._add_note(note)
 
     def _parse_slow(self, block: bytes,
                     linenos: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -392,10 +392,7 @@ class RecordingReader:
         lines: list[int] = []
         for ln, raw in zip(linenos.tolist(), block.split(b"\n")[:-1], strict=True):
             if not raw.strip() or raw.lstrip().startswith(b"#"):
-                self.stats.rows -= 1
-                note = parse_recorded_note(raw.decode("utf-8", "replace").strip())
-                if note is not None:
-                    self._add_note(note)
+                self._comment(raw)
                 continue
             cells = raw.split(b",")
             if len(cells) != ncol:
