@@ -5,8 +5,7 @@ Two independent estimates per step:
 - closed form from the measured overshoot and peak time: zeta from %OS and
   wn = pi / (Tp sqrt(1 - zeta^2)), with the 4/(zeta wn) settling estimate
   (see :mod:`livestep.steps.second_order` for the formulas and their sources);
-- a least-squares fit (Levenberg-Marquardt, MINPACK's lmder through
-  scipy.optimize.leastsq) of
+- a least-squares fit (scipy.optimize.least_squares) of
   y(t) = y0 + A s(t - t_step - dead_time; zeta, wn) to the sampled response,
   valid for over-damped responses (zeta >= 1) as well.
 
@@ -16,14 +15,12 @@ Pure functions: arrays in, frozen dataclasses out.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
 from dataclasses import dataclass
 from functools import lru_cache
-from typing import NamedTuple
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy.optimize import leastsq
+from scipy.optimize import OptimizeResult, least_squares
 
 from livestep.steps import second_order as so
 from livestep.steps.measure import StepMetrics
@@ -95,31 +92,7 @@ def _bin_edges(pre: float, span: float, finest: float) -> FloatArray:
     return np.concatenate((before, [0.0], after))
 
 
-class _Solution(NamedTuple):
-    """A least-squares solution: parameters, cost (half the sum of squared residuals) and
-    the Jacobian there."""
-
-    x: FloatArray
-    cost: float
-    jac: FloatArray
-
-
-def _levenberg_marquardt(fun: Callable[..., FloatArray], jac: Callable[..., FloatArray],
-                         x0: FloatArray, x_scale: FloatArray,
-                         args: tuple[FloatArray, FloatArray]) -> _Solution:
-    """MINPACK's lmder with the settings of ``scipy.optimize.least_squares(method="lm")``
-    (tolerances 1e-8, at most 100 n evaluations, ``diag`` = 1 / ``x_scale``), called
-    through ``scipy.optimize.leastsq``, which wraps it with far less per-call work: a fit
-    is some 20 evaluations of a 200-point model, where that wrapping cost as much as the
-    model."""
-    x, _, info, _, _ = leastsq(fun, x0, args=args, Dfun=jac, full_output=True, ftol=1e-8,
-                               xtol=1e-8, gtol=1e-8, maxfev=100 * x0.size, factor=100.0,
-                               diag=1.0 / x_scale)
-    f = info["fvec"]
-    return _Solution(x, 0.5 * float(np.dot(f, f)), jac(x, *args))
-
-
-def _dead_time_is_clear(sol: _Solution, noise_var: float) -> bool:
+def _dead_time_is_clear(sol: OptimizeResult, noise_var: float) -> bool:
     """The fitted dead time is more than 4 standard errors from zero (a Wald test, so
     the likelihood-ratio refit is not needed); errors from the Jacobian at the solution."""
     q = abs(float(sol.x[4]))
@@ -230,8 +203,8 @@ def fit_second_order(
 
     q0 = math.sqrt(max(min(theta0, 0.4 * span), 1e-3 / wn0))
     x0 = np.array([0.0, 1.0, math.log(zeta0), math.log(wn0), q0])
-    best = _levenberg_marquardt(weighted, jacobian, x0, np.array([0.1, 0.1, 0.5, 0.5, q0]),
-                                (tb, yb))
+    best = least_squares(weighted, x0, jac=jacobian, args=(tb, yb), method="lm",
+                         x_scale=np.array([0.1, 0.1, 0.5, 0.5, q0]))
     res = residual(best.x, ts, yn)
     # Residual variance, floored at (0.01 % of the amplitude)^2 so that exact data do not
     # make a numerical crumb of improvement look significant.
@@ -240,12 +213,12 @@ def fit_second_order(
         # Keep the dead time only if the data need it: refit without one and compare by a
         # likelihood-ratio test (Wilks: 2 x the cost difference over the noise variance is
         # chi-square with one degree of freedom; 95 % level, 3.84).
-        no_delay = _levenberg_marquardt(
-            lambda v, tt, yy: weighted(np.append(v, 0.0), tt, yy),
-            lambda v, tt, yy: jacobian(np.append(v, 0.0), tt, yy)[:, :4], best.x[:4],
-            np.array([0.1, 0.1, 0.5, 0.5]), (tb, yb))
+        no_delay = least_squares(
+            lambda v, tt, yy: weighted(np.append(v, 0.0), tt, yy), best.x[:4],
+            jac=lambda v, tt, yy: jacobian(np.append(v, 0.0), tt, yy)[:, :4],
+            args=(tb, yb), method="lm", x_scale=np.array([0.1, 0.1, 0.5, 0.5]))
         if 2.0 * (no_delay.cost - best.cost) / noise_var < _CHI2_1DOF_95:
-            best = best._replace(x=np.append(no_delay.x, 0.0))
+            best.x = np.append(no_delay.x, 0.0)
             res = residual(best.x, ts, yn)
     c0, g, log_zeta, log_wn, q = best.x
     theta = q * q
