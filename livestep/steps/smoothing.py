@@ -7,7 +7,9 @@ takes the spans from the response itself and its noise, never from the window's 
 
 from __future__ import annotations
 
+import math
 from functools import lru_cache
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -38,46 +40,68 @@ def _smooth(y: FloatArray, window: int) -> FloatArray:
     half = window // 2
     if window < 5 or y.size <= 2 * half:
         return y
-    return np.convolve(np.pad(y, half, mode="reflect"), _savgol(window), mode="valid")
+    mirrored = np.concatenate((y[half:0:-1], y, y[-2:-half - 2:-1]))  # np.pad's "reflect"
+    return np.convolve(mirrored, _savgol(window), mode="valid")
 
 
 @lru_cache(maxsize=256)
 def _savgol(window: int) -> FloatArray:
     """Cubic Savitzky-Golay smoothing coefficients: the weights that give the value at the
-    centre of a least-squares cubic through ``window`` points (Savitzky & Golay, Anal.
-    Chem. 36, 1964). The same for every step of a length, so cached."""
-    half = window // 2
-    design = np.vander(np.arange(-half, half + 1, dtype=float), 4, increasing=True)
-    return np.linalg.pinv(design)[0]
+    centre of a least-squares cubic (or quadratic: the same weights) through ``window`` =
+    2m + 1 points, in closed form c_j = 3 (3m^2 + 3m - 1 - 5j^2) / ((2m + 3)(2m + 1)(2m - 1))
+    (Savitzky & Golay, Anal. Chem. 36, 1964; the closed form as Madden, Anal. Chem. 50,
+    1978 gives it, from memory; the tests check it against scipy.signal.savgol_coeffs)."""
+    m = window // 2
+    return _weight(m, np.arange(-m, m + 1, dtype=float) ** 2)
+
+
+def _weight(m: int, j2: Any) -> Any:
+    """The weight c_j above of offset j (given as j^2, a float or an array)."""
+    return 3.0 * (3.0 * m * m + 3.0 * m - 1.0 - 5.0 * j2) / (
+        (2 * m + 3) * (2 * m + 1) * (2 * m - 1))
 
 
 def _box(y: FloatArray, size: int) -> FloatArray:
     """Centred moving average over an odd ``size``, the ends extended with their values."""
     half = size // 2
-    c = np.cumsum(np.pad(y, (half + 1, half), mode="edge"))
+    c = np.cumsum(np.concatenate((np.full(half + 1, y[0]), y, np.full(half, y[-1]))))
     return (c[size:] - c[:-size]) / size
 
 
-def smoothed(tg: FloatArray, yg: FloatArray, g0: int,
-              window: int) -> tuple[FloatArray, FloatArray, int]:
+def smoothed(tg: FloatArray, yg: FloatArray, g0: int, window: int,
+             stop: int | None = None) -> tuple[FloatArray, FloatArray, int]:
     """(times, values, index of the step instant) of ``yg`` smoothed over ``window`` samples
     of the uniform grid ``tg``. A long span first averages blocks of k = window / 10
     samples and goes on with every k-th point, the step instant among them (the same
-    smoothing to first order, at 1/k^2 of the cost)."""
+    smoothing to first order, at 1/k^2 of the cost). ``stop``: only the points before grid
+    index ``stop`` are wanted (a shorter result, the same values, for less work)."""
     window = min(window, _odd(yg.size // 2, 1) - 2)  # never longer than the data
     if window < 5:
         return tg, yg, g0
     k = (window // 10) | 1  # odd, so the box is centred on its point
+    if stop is not None and stop + window + 2 * k + 2 < yg.size:
+        # A point depends on the samples within half a window (and half a box) of it.
+        tg, yg = tg[:stop + window + 2 * k + 2], yg[:stop + window + 2 * k + 2]
+    else:
+        stop = None
     if k < 3:
-        return tg, _smooth(yg, window), g0
-    return tg[g0 % k::k], _smooth(_box(yg, k)[g0 % k::k], _odd(window / k, 5)), g0 // k
+        ts, ys = tg, _smooth(yg, window)
+    else:
+        ts, ys = tg[g0 % k::k], _smooth(_box(yg, k)[g0 % k::k], _odd(window / k, 5))
+    if stop is not None:
+        keep = -(-(stop - g0 % k) // k) if k >= 3 else stop
+        ts, ys = ts[:keep], ys[:keep]
+    return ts, ys, g0 // k if k >= 3 else g0
 
 
-@lru_cache(maxsize=256)
 def noise_gain(window: int) -> float:
     """Standard deviation of white noise after :func:`_smooth` over ``window`` samples, as a
-    fraction of the noise's own (the root sum of squares of the filter's weights)."""
-    return 1.0 if window < 5 else float(np.sqrt(np.sum(_savgol(window) ** 2)))
+    fraction of the noise's own: the root sum of squares of the filter's weights, which for
+    a least-squares smoother is the root of its centre weight (the smoother is a
+    projection, so the sum of its squared weights equals that weight)."""
+    if window < 5:
+        return 1.0
+    return math.sqrt(_weight(window // 2, 0.0))
 
 
 def _span(samples: float) -> int:
@@ -99,10 +123,21 @@ def choose_spans(tg: FloatArray, yg: FloatArray, g0: int, initial: float, amp: f
     the oscillation period) or, without a peak, two rise times, so an oscillation keeps its
     amplitude; never shorter than ``rise``. ``rel``: noise sigma / |amplitude|.
     """
-    def crossings(window: int) -> tuple[FloatArray, FloatArray, float | None, float | None]:
-        ts, ys, s0 = smoothed(tg, yg, g0, window)
+    # The crossings and the first peak need the smoothed response only up to some rise
+    # times past the raw samples' high crossing: smoothed that far first, and all the way
+    # only when that was not far enough.
+    above = np.flatnonzero((yg[g0:] - initial) / amp >= 0.9)
+    reach = None if above.size == 0 else g0 + 8 * int(above[0]) + 16
+
+    def crossings(window: int, stop: int | None = reach
+                  ) -> tuple[FloatArray, FloatArray, float | None, float | None]:
+        ts, ys, s0 = smoothed(tg, yg, g0, window, stop)
         r = (ys - initial) / amp
-        return ts, r, first_crossing(ts, r, 0.1, s0), first_crossing(ts, r, 0.9, s0)
+        lo_t, hi_t = first_crossing(ts, r, 0.1, s0), first_crossing(ts, r, 0.9, s0)
+        cut = stop is not None and stop < tg.size and ts[-1] < tg[stop]
+        if cut and (lo_t is None or hi_t is None or ts[-1] < lo_t + 6.0 * max(hi_t - lo_t, dt)):
+            return crossings(window, None)
+        return ts, r, lo_t, hi_t
 
     rise_span = _span((1.5 * rel / 0.02) ** 2)
     ts, r, lo_t, hi_t = crossings(rise_span)
