@@ -17,13 +17,16 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 from functools import lru_cache
+from typing import TYPE_CHECKING
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy.optimize import OptimizeResult, least_squares
 
 from livestep.steps import second_order as so
 from livestep.steps.measure import StepMetrics
+
+if TYPE_CHECKING:
+    from scipy.optimize import OptimizeResult
 
 __all__ = ["ClosedFormEstimate", "ModelFit", "closed_form_estimate", "fit_second_order"]
 
@@ -77,8 +80,8 @@ def _bin_means(t: FloatArray, y: FloatArray, edges_t: FloatArray
                ) -> tuple[FloatArray, FloatArray, FloatArray]:
     """Means of t and y in the time bins ``edges_t`` (empty bins dropped) and the
     sample counts, for weighting."""
-    edges = np.unique(np.searchsorted(t, edges_t))
-    edges = edges[edges < t.size]
+    edges = np.searchsorted(t, edges_t)  # sorted: the empty bins are repeated edges
+    edges = edges[(edges < t.size) & np.append(True, np.diff(edges) > 0)]
     counts = np.diff(np.append(edges, t.size)).astype(float)
     return (np.add.reduceat(t, edges) / counts, np.add.reduceat(y, edges) / counts, counts)
 
@@ -154,6 +157,10 @@ def fit_second_order(
     """
     if m.rise_time is None or m.delay_time is None or m.amplitude == 0.0:
         return None
+    # Loaded on the first fit, not with the module: half a second of a command's start,
+    # which a forked reader can use meanwhile.
+    from scipy.optimize import least_squares
+
     t = np.asarray(t, dtype=float)
     y = np.asarray(feedback, dtype=float)
     end = float(t[-1]) if window_end is None else window_end
@@ -164,8 +171,7 @@ def fit_second_order(
     ts, yn = t[sel] - m.t_step, (y[sel] - m.initial) / m.amplitude
     if ts.size < 8:
         return None
-    dt = float(np.median(np.diff(ts)))
-    finest = max(dt, min(m.delay_time, m.rise_time) / 40.0)
+    finest = max(m.sample_period, min(m.delay_time, m.rise_time) / 40.0)
     tb, yb, counts = _bin_means(ts, yn, _bin_edges(pre, span, finest))
     weight = np.sqrt(counts)  # a bin mean of n samples has 1/n of a sample's variance
 

@@ -43,19 +43,20 @@ def step_and_impulse(t: ArrayLike, zeta: float,
                      wn: float) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     """Unit-step response s(t) and its time derivative, the impulse response h(t) (1/s).
 
-    With x = wn sqrt(|1 - zeta^2|) t and decay = exp(-zeta wn t):
-    s = 1 - decay (cos x + zeta wn t sin(x)/x) and h = wn^2 t decay sin(x)/x when
-    underdamped; cosh and sinh in place of cos and sin when over-damped.
+    With wd = wn sqrt(|1 - zeta^2|), x = wd t and decay = exp(-zeta wn t):
+    s = 1 - decay (cos x + (zeta wn / wd) sin x) and h = (wn^2 / wd) decay sin x when
+    underdamped (sin(wd t) / wd stays accurate as wd goes to zero); cosh and sinh in place
+    of cos and sin when over-damped.
     """
     t = np.maximum(np.asarray(t, dtype=float), 0.0)
-    sigma_t = zeta * wn * t
     if zeta < 1.0:
-        x = wn * math.sqrt(1.0 - zeta * zeta) * t
-        decay = np.exp(-sigma_t)
-        safe_x = np.where(x == 0.0, 1.0, x)
-        sin_over_x = np.where(x == 0.0, 1.0, np.sin(x) / safe_x)
-        s = 1.0 - decay * (np.cos(x) + sigma_t * sin_over_x)
-        return s, wn * wn * t * decay * sin_over_x
+        wd = wn * math.sqrt(1.0 - zeta * zeta)
+        x = wd * t
+        decay = np.exp(t * (-zeta * wn))
+        sin_x = np.sin(x)
+        s = 1.0 - decay * (np.cos(x) + (zeta * wn / wd) * sin_x)
+        return s, (wn * wn / wd) * (decay * sin_x)
+    sigma_t = zeta * wn * t
     root = math.sqrt(zeta * zeta - 1.0)
     x = wn * root * t
     # exp(-sigma t) cosh, sinh without overflow; the slow pole wn (zeta - root) written as
