@@ -319,30 +319,40 @@ class RecordingReader:
         if b"\r" in block:
             block = block.replace(b"\r", b"")
         linenos = np.arange(first_line, first_line + nlines)
-        if b"\n\n" in block or block[:1] == b"\n":  # blank lines: dropped at numpy speed
-            block, linenos = _drop_empty_lines(block, linenos)
-            self.stats.rows -= nlines - linenos.size
-            nlines = linenos.size
-            if nlines == 0:
-                return None
         if b"#" in block:  # comment and note lines out, so the rest parses in one pass
             block, comments = split_off_lines(block, COMMENT_START)
             if comments:
                 for _, raw in comments:
                     self._comment(raw)
                 linenos = np.delete(linenos, [n + j for j, (n, _) in enumerate(comments)])
-                nlines = linenos.size
-                if nlines == 0:
+                if linenos.size == 0:
                     return None
+        if self._ni is None:
+            # The usual block, rows only: parsed at once (a blank line, like any line that
+            # is not ncol numbers, makes it fail, and the general path below handles it).
+            data = parse_block(block, linenos.size, ncol, library=True)
+            if data is not None:
+                return self._chunk(data, linenos, [])
+        if b"\n\n" in block or block[:1] == b"\n":  # blank lines: dropped at numpy speed
+            kept = linenos.size
+            block, linenos = _drop_empty_lines(block, linenos)
+            self.stats.rows -= kept - linenos.size
+            if linenos.size == 0:
+                return None
         cells: list[tuple[int, str]] = []
         if self._ni is not None:
             block, found = cut_column(block, self._ni, len(self.header), 0)
             cells = [(int(linenos[k]), text) for k, text in found]
-        data = parse_block(block, nlines, ncol, library=True)
-        if data is not None:
-            lines = linenos
-        else:
-            data, lines = self._parse_slow(block, linenos)
+        data = parse_block(block, linenos.size, ncol, library=True)
+        if data is None:
+            data, linenos = self._parse_slow(block, linenos)
+        return self._chunk(data, linenos, cells)
+
+    def _chunk(self, data: np.ndarray, lines: np.ndarray,
+               cells: list[tuple[int, str]]) -> SampleChunk | None:
+        """The chunk of the parsed rows ``data`` (their line numbers ``lines``): rows with a
+        missing role value skipped, the time checked and scaled, notes of the note column
+        (``cells``) placed."""
         roles = [self._ti, self._fi] + ([self._si] if self._si is not None else [])
         finite = np.isfinite(data[:, roles]).all(axis=1)
         if not finite.all():

@@ -15,7 +15,14 @@ from _work import count_work
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from livestep.decode.lines import find_pairs, is_garbage, looks_like_data
+from livestep.decode.lines import (
+    COMMENT_START,
+    _first_bytes,
+    find_pairs,
+    is_garbage,
+    looks_like_data,
+    split_off_lines,
+)
 from livestep.decode.text import TextDecoder, TextFormat
 from livestep.steps.tags import parse_note, parse_notes, parse_recorded_note
 
@@ -117,3 +124,12 @@ def test_any_hostile_line_costs_linear_work_long_run(text, head):
     total, patterns = decoder_work(text.encode("utf-8", "surrogatepass"), HEADS[head])
     assert set(patterns) <= LINEAR_PATTERNS
     assert total <= PER_CHAR * (len(text.encode("utf-8", "surrogatepass")) + 1) + FIXED
+
+
+@given(st.lists(st.sampled_from([b"#", b"# note: 1.5 gains=a", b"#x,1", b"1,2#,3", b"",
+                                 b"1.5,2,3", b"a#b"]), max_size=40))
+def test_comment_lines_cut_by_search_as_by_first_byte(lines: list[bytes]) -> None:
+    # The search for "#" (the recording reader's comments) cuts exactly the lines the
+    # general first-byte table does, with the same counts of lines before each.
+    block = b"".join(x + b"\n" for x in lines)
+    assert split_off_lines(block, COMMENT_START) == split_off_lines(block, _first_bytes(b"#"))
