@@ -6,8 +6,8 @@ Usage: python tools/bench_analyze.py [--hours H] [--rate HZ] [--quick] [--repeat
 Writes an invented bench recording (a belt-driven positioning axis stepped up and down
 every 2 s with changing gains: damping ratio and natural frequency vary, with sensor
 noise, encoder quantisation and timestamp jitter), then runs each side in its own
-subprocess, ``--repeat`` times interleaved, so that wall time and peak memory (the
-child's maximum resident set) are its own:
+subprocess, ``--repeat`` times interleaved, so that wall time and peak memory (the sum
+over the child and the processes it starts, see ``_TIMER``) are its own:
 
 - livestep: ``RecordingReader`` -> ``analyze_chunks`` with model fits, as
   ``livestep analyze`` does (read, detect, measure, fit), with its default ``--jobs``;
@@ -153,7 +153,8 @@ def write_recording(path: Path, hours: float, rate: float, seed: int = 7) -> int
 # -- the two sides (run in child processes) -----------------------------------------------
 def run_livestep(path: str) -> dict[str, float]:
     """Read, detect, measure and fit, the way ``livestep analyze`` does with its defaults."""
-    from livestep.sources.recording import ColumnMap, RecordingReader, read_ahead
+    from livestep.sources.read_process import read_in_process
+    from livestep.sources.recording import ColumnMap, RecordingReader
     from livestep.steps.analysis import AnalysisSettings, analyze_chunks
     from livestep.steps.detect import DetectorSettings
     from livestep.steps.measure import MeasureSettings
@@ -167,7 +168,7 @@ def run_livestep(path: str) -> dict[str, float]:
     from livestep.cli.options import default_jobs
 
     workers = default_jobs()  # the 'livestep analyze' default
-    results = list(analyze_chunks(read_ahead(reader), settings,
+    results = list(analyze_chunks(read_in_process(reader), settings,
                                   has_setpoint=reader.has_setpoint, workers=workers))
     seconds = time.perf_counter() - t0
     return {"seconds": seconds, "samples": reader.stats.good, "steps": len(results),
@@ -229,27 +230,52 @@ def _profile(path: str, top: int) -> None:
 
 # -- parent ---------------------------------------------------------------------------------
 # A minimal timer process between this one and each measured command: a child's peak
-# resident memory (ru_maxrss) starts from its parent's at the spawn, so the parent, which
-# held the generator's arrays, must not be the one that spawns it.
+# resident memory starts from its parent's at the spawn, so the parent, which held the
+# generator's arrays, must not be the one that spawns it. Memory is the peak of the sum of
+# the proportional set sizes (Pss: a shared page counted once in all) of the command and
+# every process it starts (livestep reads in a forked child), sampled every 20 ms; without
+# /proc, the largest resident set of any one of them (ru_maxrss).
 _TIMER = """
 import os, sys, time
+def tree(pid):
+    out = [pid]
+    try:
+        for tid in os.listdir(f"/proc/{pid}/task"):
+            with open(f"/proc/{pid}/task/{tid}/children") as fh:
+                out += [q for c in fh.read().split() for q in tree(int(c))]
+    except OSError:
+        pass
+    return out
+def pss(pid):
+    try:
+        with open(f"/proc/{pid}/smaps_rollup") as fh:
+            return next(int(x.split()[1]) for x in fh if x.startswith("Pss:"))
+    except (OSError, StopIteration):
+        return 0
 t0 = time.perf_counter()
 pid = os.posix_spawn(sys.argv[2], sys.argv[2:], os.environ)
-_, status, usage = os.wait4(pid, 0)
+peak = 0
+while True:
+    done, status, usage = os.wait4(pid, os.WNOHANG)
+    if done:
+        break
+    peak = max(peak, sum(pss(p) for p in tree(pid)))
+    time.sleep(0.02)
+wall = time.perf_counter() - t0
 with open(sys.argv[1], "w") as fh:
-    fh.write(f"{time.perf_counter() - t0} {usage.ru_maxrss} {os.waitstatus_to_exitcode(status)}")
+    fh.write(f"{wall} {peak or usage.ru_maxrss} {os.waitstatus_to_exitcode(status)}")
 """
 
 
 def _measure(cmd: list[str], scratch: Path) -> tuple[float, float, str]:
-    """Run ``cmd``; its wall seconds, its peak resident memory (MB) and its stdout."""
+    """Run ``cmd``; its wall seconds, its peak memory (MB, see ``_TIMER``) and its stdout."""
     report = scratch / "timer.txt"
     out = subprocess.run([sys.executable, "-S", "-c", _TIMER, str(report), *cmd],
                          stdout=subprocess.PIPE, check=True).stdout.decode()
-    wall, max_rss_kib, status = report.read_text().split()
+    wall, peak_kib, status = report.read_text().split()
     if int(status) != 0:
         raise SystemExit(f"bench: {' '.join(cmd)} exited with status {status}")
-    return float(wall), int(max_rss_kib) * 1024 / 1e6, out
+    return float(wall), int(peak_kib) * 1024 / 1e6, out
 
 
 def _with_notes(src: Path, dst: Path, every: int) -> int:
@@ -384,8 +410,9 @@ def main() -> None:
     console.print(table)
     console.print("work s: inside the child from reading to the last result, imports excluded"
                   " (the CLI rows: the whole process). process s: the child's wall time."
-                  " vs: throughput ratio, work / whole process, by medians. peak MB: each"
-                  " child's largest resident set (10^6 bytes) over its runs.")
+                  " vs: throughput ratio, work / whole process, by medians. peak MB: the"
+                  " largest sum of the Pss of the child and the processes it starts (10^6"
+                  " bytes) over its runs.")
     if args.notes:
         ratio = (_stats([r[1] for r in runs["livestep CLI, notes"]])[0]
                  / _stats([r[1] for r in runs["livestep CLI"]])[0])

@@ -14,7 +14,8 @@ from livestep.cli.options import (
 from livestep.errors import EXIT_BAD_INPUT, EXIT_OK, InputError, one_line
 from livestep.judge.profile import load_profile
 from livestep.judge.verdict import gate_status, verdict_summary
-from livestep.sources.recording import ColumnMap, RecordingReader, read_ahead
+from livestep.sources.read_process import read_in_process
+from livestep.sources.recording import ColumnMap, RecordingReader
 from livestep.steps.analysis import AnalysisSettings, StepResult, analyze_chunks
 
 
@@ -65,7 +66,7 @@ def _read_results(path: str, args: argparse.Namespace,
     reader = RecordingReader(path, ColumnMap(
         time=args.time, setpoint=args.setpoint, feedback=args.feedback,
         time_unit=args.time_unit))
-    results = list(analyze_chunks(read_ahead(reader), settings,
+    results = list(analyze_chunks(read_in_process(reader), settings,
                                   has_setpoint=reader.has_setpoint, workers=args.jobs))
     if reader.notes:
         from livestep.steps.tags import NoteTimeline, tag_results

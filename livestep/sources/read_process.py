@@ -1,0 +1,117 @@
+"""Reading a recording in a child process, so that parsing runs on a second core.
+
+The analysis (Python and small numpy calls) holds the interpreter lock nearly all the
+time, so a reading thread barely overlaps it; a forked child does. The child iterates the
+:class:`~livestep.sources.recording.RecordingReader` and writes the samples into a ring of
+slots in memory shared with the parent (an anonymous shared mapping made before the fork:
+no copy through a pipe, nothing to clean up after a crash), and says which slot through a
+bounded queue (at most ``depth`` chunks ahead, so memory stays flat). A chunk longer than a
+slot goes in several pieces: the analysis gives the same results whatever the chunk sizes.
+At the end the child sends what the reader learnt (statistics, notes, damage), which is
+copied into the parent's reader, so the caller sees the same reader state as after
+reading in place.
+"""
+
+from __future__ import annotations
+
+import mmap
+import multiprocessing as mp
+import pickle
+import queue
+import signal
+from collections.abc import Iterator
+from typing import Any
+
+import numpy as np
+
+from livestep.sources.recording import RecordingReader, read_ahead
+from livestep.steps.samples import SampleChunk
+
+__all__ = ["read_in_process"]
+
+#: What the child copies back into the parent's reader at the end.
+_STATE = ("stats", "notes", "damage", "_line", "_last_t")
+_SLOT_ROWS = 1 << 16  # samples a slot holds
+
+
+def read_in_process(reader: RecordingReader, depth: int = 8) -> Iterator[SampleChunk]:
+    """Iterate ``reader``'s chunks, read in a forked child (a reading thread where fork is
+    not available). Errors from the reader are raised here, in their place in the
+    sequence. Start it before any other thread of the process (fork copies only the
+    calling thread)."""
+    if "fork" not in mp.get_all_start_methods():
+        yield from read_ahead(reader, depth)
+        return
+    ctx = mp.get_context("fork")
+    names = list(reader.extra_names)
+    ncol = 2 + reader.has_setpoint + len(names)
+    ring = depth + 2  # the child reuses a slot only after the parent took the next one
+    shared = mmap.mmap(-1, ring * _SLOT_ROWS * ncol * 8)
+    slots = np.frombuffer(shared, dtype=np.float64).reshape(ring, ncol, _SLOT_ROWS)
+    q: Any = ctx.Queue(maxsize=depth)
+    child = ctx.Process(target=_produce, args=(reader, q, slots, names), daemon=True,
+                        name="livestep-reader")
+    child.start()
+    try:
+        while True:
+            try:
+                kind, item = q.get(timeout=1.0)
+            except queue.Empty:
+                if child.is_alive():
+                    continue
+                raise RuntimeError(f"the reading process ended unexpectedly (exit status"
+                                   f" {child.exitcode})") from None
+            if kind == "slot":
+                k, n, segment = item
+                cols = slots[k, :, :n].copy()
+                sp = 2 if reader.has_setpoint else None
+                yield SampleChunk(t=cols[0], feedback=cols[1],
+                                  setpoint=None if sp is None else cols[sp],
+                                  extras={x: cols[ncol - len(names) + j]
+                                          for j, x in enumerate(names)}, segment=segment)
+            elif kind == "chunk":
+                yield item
+            elif kind == "error":
+                raise item
+            else:
+                for name, value in item.items():
+                    setattr(reader, name, value)
+                return
+    finally:
+        if child.is_alive():
+            child.terminate()
+        child.join()
+        q.close()
+        q.join_thread()
+        del slots
+        shared.close()
+
+
+def _produce(reader: RecordingReader, q: Any, slots: np.ndarray, names: list[str]) -> None:
+    """The child: every chunk (in the shared slots, in turn), then the reader's state, or
+    the error that stopped it."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # ctrl-c is the parent's to handle
+    ring, ncol, rows = slots.shape
+    k = 0
+    try:
+        for chunk in reader:
+            if list(chunk.extras) != names:  # not the header's columns: sent whole
+                q.put(("chunk", chunk))
+                continue
+            cols = [chunk.t, chunk.feedback] + ([] if chunk.setpoint is None
+                                                else [chunk.setpoint]) + list(chunk.extras.values())
+            for a in range(0, chunk.t.size, rows):
+                n = min(rows, chunk.t.size - a)
+                for j, c in enumerate(cols):
+                    slots[k, j, :n] = c[a:a + n]
+                q.put(("slot", (k, n, chunk.segment)))
+                k = (k + 1) % ring
+        q.put(("end", {name: getattr(reader, name) for name in _STATE}))
+    except BaseException as exc:  # noqa: BLE001 - handed to the parent, in its place
+        try:
+            pickle.dumps(exc)
+        except Exception:  # noqa: BLE001 - an error that cannot be sent: its text can
+            exc = RuntimeError(f"{type(exc).__name__}: {exc}")
+        q.put(("error", exc))
+    q.close()
+    q.join_thread()
