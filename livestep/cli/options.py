@@ -172,8 +172,8 @@ def add_recording_options(p: argparse.ArgumentParser) -> None:
 
 
 def default_jobs() -> int:
-    """Worker processes for offline analysis: 1 (in this process, beside the thread that
-    reads ahead) with 2 cores or fewer, where more workers cost time
+    """Worker processes for offline analysis: 1 (in this process, beside the process that
+    reads the recording) with 2 cores or fewer, where more workers cost time
     (``tools/bench_analyze.py``); else one per core beyond those two, at most 4."""
     try:
         cores = len(os.sched_getaffinity(0))
