@@ -36,12 +36,11 @@ _SLOT_ROWS = 1 << 16  # samples a slot holds
 
 def read_in_process(reader: RecordingReader, depth: int = 8) -> Iterator[SampleChunk]:
     """Iterate ``reader``'s chunks, read in a forked child (a reading thread where fork is
-    not available). Errors from the reader are raised here, in their place in the
-    sequence. Start it before any other thread of the process (fork copies only the
-    calling thread)."""
+    not available). The child starts now, so it reads while the caller prepares. Errors
+    from the reader are raised in the iteration, in their place in the sequence. Call it
+    before any other thread of the process starts (fork copies only the calling thread)."""
     if "fork" not in mp.get_all_start_methods():
-        yield from read_ahead(reader, depth)
-        return
+        return read_ahead(reader, depth)
     ctx = mp.get_context("fork")
     names = list(reader.extra_names)
     ncol = 2 + reader.has_setpoint + len(names)
@@ -52,6 +51,14 @@ def read_in_process(reader: RecordingReader, depth: int = 8) -> Iterator[SampleC
     child = ctx.Process(target=_produce, args=(reader, q, slots, names), daemon=True,
                         name="livestep-reader")
     child.start()
+    return _receive(reader, child, q, shared, slots, names)
+
+
+def _receive(reader: RecordingReader, child: Any, q: Any, shared: mmap.mmap,
+             slots: np.ndarray, names: list[str]) -> Iterator[SampleChunk]:
+    """The parent's side: each chunk as the child announces it, copied out of its slot;
+    at the end the reader's state; the child ended and the memory released when done."""
+    ncol = slots.shape[1]
     try:
         while True:
             try:

@@ -24,6 +24,7 @@ from livestep.steps.model_fit import (
     ModelFit,
     closed_form_estimate,
     fit_second_order,
+    load_solver,
 )
 from livestep.steps.progress import SETTLING, StepProgress, step_progress
 from livestep.steps.samples import SampleChunk
@@ -186,7 +187,11 @@ def analyze_chunks(chunks: Iterable[SampleChunk], settings: AnalysisSettings = A
     ``workers`` > 1 measures and fits the steps in that many forked worker processes
     while this one reads and detects (offline analysis of long recordings); the results
     are the same, in the same order. Start it before any other thread of the process.
+    The fit's solver is loaded first, while a reader started before (a process of its
+    own) reads.
     """
+    if settings.fit_model:
+        load_solver()
     if workers <= 1 or "fork" not in mp.get_all_start_methods():
         analyzer = StepAnalyzer(settings, has_setpoint=has_setpoint)
         for chunk in chunks:

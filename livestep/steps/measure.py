@@ -44,7 +44,13 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import NDArray
 
-from livestep.steps.smoothing import choose_spans, first_crossing, noise_gain, smoothed
+from livestep.steps.smoothing import (
+    Smoothed,
+    choose_spans,
+    first_crossing,
+    noise_gain,
+    smoothed,
+)
 
 __all__ = ["MeasureSettings", "StepMetrics", "measure_step", "noise_sigma", "robust_level",
            "without_figures"]
@@ -252,10 +258,14 @@ def measure_step(
     amp = final - initial
     band = settings.settling_band / 100.0
     w_rise = w_shape = 1
+    memo: dict[int, Smoothed] = {}  # the smoothings choose_spans made, by span
     if abs(amp) >= 5.0 * sigma and sigma > 1e-6 * abs(amp) and dt > 0:
-        w_rise, w_shape = choose_spans(tg, yg, g0, initial, amp, sigma / abs(amp), band, dt)
-    tr, yr, r0 = smoothed(tg, yg, g0, w_rise)  # for the reference-level crossings
-    tsh, ys, s0 = (tr, yr, r0) if w_shape == w_rise else smoothed(tg, yg, g0, w_shape)
+        w_rise, w_shape = choose_spans(tg, yg, g0, initial, amp, sigma / abs(amp), band, dt,
+                                       memo)
+    # for the reference-level crossings, and for the peak and the settling band
+    tr, yr, r0 = memo.get(w_rise) or smoothed(tg, yg, g0, w_rise)
+    tsh, ys, s0 = (tr, yr, r0) if w_shape == w_rise else (
+        memo.get(w_shape) or smoothed(tg, yg, g0, w_shape))
     for _ in range(3):
         amp = final - initial
         if amp == 0.0 or abs(amp) < 5.0 * sigma:

@@ -28,7 +28,8 @@ from livestep.steps.measure import StepMetrics
 if TYPE_CHECKING:
     from scipy.optimize import OptimizeResult
 
-__all__ = ["ClosedFormEstimate", "ModelFit", "closed_form_estimate", "fit_second_order"]
+__all__ = ["ClosedFormEstimate", "ModelFit", "closed_form_estimate", "fit_second_order",
+           "load_solver"]
 
 FloatArray = NDArray[np.float64]
 _MAX_BINS = 200
@@ -139,6 +140,13 @@ def _initial_guess(m: StepMetrics) -> tuple[float, float, float]:
         wn = (x90 - x10) / max(m.rise_time or 1.0, 1e-12)
     theta = max(0.0, t10 - _model_crossing(zeta, 0.1) / wn)
     return zeta, wn, theta
+
+
+def load_solver() -> None:
+    """Load the least-squares solver (scipy.optimize, about half a second) now rather than
+    on the first fit: for a caller with something else running meanwhile (a recording
+    read by another process)."""
+    import scipy.optimize  # noqa: F401
 
 
 def fit_second_order(

@@ -110,8 +110,12 @@ def _span(samples: float) -> int:
     return k if k >= 5 else 1
 
 
+Smoothed = tuple[FloatArray, FloatArray, int]  # what smoothed() gives
+
+
 def choose_spans(tg: FloatArray, yg: FloatArray, g0: int, initial: float, amp: float,
-                     rel: float, band: float, dt: float) -> tuple[int, int]:
+                 rel: float, band: float, dt: float,
+                 memo: dict[int, Smoothed] | None = None) -> tuple[int, int]:
     """Smoothing spans (samples) chosen from the response and the noise alone, never from
     the window's length: ``rise`` for the reference-level crossings and ``shape`` for the
     peak and the settling band.
@@ -121,7 +125,8 @@ def choose_spans(tg: FloatArray, yg: FloatArray, g0: int, initial: float, amp: f
     the rise closely). shape: long enough that the smoothed noise is a tenth of the band,
     but no longer than half the time from the low crossing to the first peak (a quarter of
     the oscillation period) or, without a peak, two rise times, so an oscillation keeps its
-    amplitude; never shorter than ``rise``. ``rel``: noise sigma / |amplitude|.
+    amplitude; never shorter than ``rise``. ``rel``: noise sigma / |amplitude|. ``memo``
+    receives each whole smoothing computed here, by span, for the caller to use again.
     """
     # The crossings and the first peak need the smoothed response only up to some rise
     # times past the raw samples' high crossing: smoothed that far first, and all the way
@@ -137,6 +142,8 @@ def choose_spans(tg: FloatArray, yg: FloatArray, g0: int, initial: float, amp: f
         cut = stop is not None and stop < tg.size and ts[-1] < tg[stop]
         if cut and (lo_t is None or hi_t is None or ts[-1] < lo_t + 6.0 * max(hi_t - lo_t, dt)):
             return crossings(window, None)
+        if not cut and memo is not None:
+            memo[window] = (ts, ys, s0)
         return ts, r, lo_t, hi_t
 
     rise_span = _span((1.5 * rel / 0.02) ** 2)
