@@ -15,8 +15,8 @@ import numpy as np
 from livestep.decode.numparse import is_number
 
 __all__ = ["COMMENT", "COMMENT_START", "TEXT_START", "cut_column", "cut_column_lines",
-           "drop_long_lines", "find_pairs", "is_comment", "is_garbage", "is_name",
-           "looks_like_data", "numeric_cells", "split_off_lines"]
+           "cut_comments", "drop_long_lines", "find_pairs", "is_comment", "is_garbage",
+           "is_name", "looks_like_data", "numeric_cells", "split_off_lines"]
 
 COMMENT = b"#"
 _SEPARATORS = bytes.maketrans(b",;\t", b"   ")
@@ -142,27 +142,53 @@ def split_off_lines(block: bytes, first: np.ndarray) -> tuple[bytes, list[tuple[
     return b"".join(pieces), cut
 
 
-def _split_off_comments(block: bytes) -> tuple[bytes, list[tuple[int, bytes]]]:
-    """:func:`split_off_lines` for the lines that start with ``#``, found by searching for
-    that byte (a few comment lines in a large block: much less work than looking at the
-    first byte of every line)."""
-    pieces: list[memoryview] = []  # joined once: one copy of the rest
-    cut, at, rows, view = [], 0, 0, memoryview(block)
+def _comment_spans(block: bytes) -> list[tuple[int, int]]:
+    """(start, end) of every line of ``block`` that starts with ``#`` (the end at its
+    newline), found by searching for that byte: a few comment lines in a large block cost
+    much less than looking at the first byte of every line."""
+    spans = []
     k = block.find(COMMENT)
     while k >= 0:
         if k == 0 or block[k - 1] == 10:  # at a line's start
-            rows += block.count(b"\n", at, k)
             e = block.index(b"\n", k)
-            pieces.append(view[at:k])
-            cut.append((rows, block[k:e]))
-            at = e + 1
-            k = block.find(COMMENT, at)
+            spans.append((k, e))
+            k = block.find(COMMENT, e + 1)
         else:
             k = block.find(COMMENT, k + 1)
-    if not cut:
-        return block, []
+    return spans
+
+
+def _without(block: bytes, spans: list[tuple[int, int]]) -> bytes:
+    """The block without the lines ``spans`` (and their newlines), in one copy."""
+    view, at, pieces = memoryview(block), 0, []
+    for a, e in spans:
+        pieces.append(view[at:a])
+        at = e + 1
     pieces.append(view[at:])
-    return b"".join(pieces), cut
+    return b"".join(pieces)
+
+
+def cut_comments(block: bytes) -> tuple[bytes, list[bytes]]:
+    """The block without its ``#`` lines, and those lines (without their newlines): what
+    :func:`split_off_lines` gives with :data:`COMMENT_START`, without counting the lines
+    before each (for a caller that does not need their places)."""
+    spans = _comment_spans(block)
+    if not spans:
+        return block, []
+    return _without(block, spans), [block[a:e] for a, e in spans]
+
+
+def _split_off_comments(block: bytes) -> tuple[bytes, list[tuple[int, bytes]]]:
+    """:func:`split_off_lines` for the lines that start with ``#``."""
+    spans = _comment_spans(block)
+    if not spans:
+        return block, []
+    cut, at, rows = [], 0, 0
+    for a, e in spans:
+        rows += block.count(b"\n", at, a)
+        cut.append((rows, block[a:e]))
+        at = e + 1
+    return _without(block, spans), cut
 
 
 def cut_column(block: bytes, index: int, ncol: int,

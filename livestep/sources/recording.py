@@ -25,13 +25,19 @@ from __future__ import annotations
 import math
 import queue
 import threading
-from collections.abc import Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from livestep.decode.lines import COMMENT_START, cut_column, cut_column_lines, split_off_lines
+from livestep.decode.lines import (
+    COMMENT_START,
+    cut_column,
+    cut_column_lines,
+    cut_comments,
+    split_off_lines,
+)
 from livestep.decode.numparse import is_number, parse_block
 from livestep.errors import InputError
 from livestep.sources.files import READ_ERRORS, open_file, read_error
@@ -318,21 +324,26 @@ class RecordingReader:
         self.stats.rows += nlines
         if b"\r" in block:
             block = block.replace(b"\r", b"")
+        if self._ni is None:
+            # The usual block: rows, perhaps with comment and note lines, parsed at once (a
+            # blank line, like any line that is not ncol numbers, fails the parse, and the
+            # general path below takes the block). The rows' line numbers are counted only
+            # if a row needs one (skipped, or its time going backwards).
+            rows, comments = cut_comments(block) if b"#" in block else (block, [])
+            data = parse_block(rows, nlines - len(comments), ncol, library=True)
+            if data is not None:
+                for raw in comments:
+                    self._comment(raw)
+                return self._chunk(data, lambda: _row_lines(block, first_line), [])
         linenos = np.arange(first_line, first_line + nlines)
         if b"#" in block:  # comment and note lines out, so the rest parses in one pass
-            block, comments = split_off_lines(block, COMMENT_START)
-            if comments:
-                for _, raw in comments:
+            block, cut = split_off_lines(block, COMMENT_START)
+            if cut:
+                for _, raw in cut:
                     self._comment(raw)
-                linenos = np.delete(linenos, [n + j for j, (n, _) in enumerate(comments)])
+                linenos = np.delete(linenos, [n + j for j, (n, _) in enumerate(cut)])
                 if linenos.size == 0:
                     return None
-        if self._ni is None:
-            # The usual block, rows only: parsed at once (a blank line, like any line that
-            # is not ncol numbers, makes it fail, and the general path below handles it).
-            data = parse_block(block, linenos.size, ncol, library=True)
-            if data is not None:
-                return self._chunk(data, linenos, [])
         if b"\n\n" in block or block[:1] == b"\n":  # blank lines: dropped at numpy speed
             kept = linenos.size
             block, linenos = _drop_empty_lines(block, linenos)
@@ -346,35 +357,43 @@ class RecordingReader:
         data = parse_block(block, linenos.size, ncol, library=True)
         if data is None:
             data, linenos = self._parse_slow(block, linenos)
-        return self._chunk(data, linenos, cells)
+        return self._chunk(data, lambda: linenos, cells)
 
-    def _chunk(self, data: np.ndarray, lines: np.ndarray,
+    def _chunk(self, data: np.ndarray, line_numbers: Callable[[], np.ndarray],
                cells: list[tuple[int, str]]) -> SampleChunk | None:
-        """The chunk of the parsed rows ``data`` (their line numbers ``lines``): rows with a
-        missing role value skipped, the time checked and scaled, notes of the note column
-        (``cells``) placed."""
+        """The chunk of the parsed rows ``data`` (``line_numbers()``: their line numbers,
+        asked for only when needed): rows with a missing role value skipped, the time
+        checked and scaled, notes of the note column (``cells``) placed."""
+        lines: np.ndarray | None = None
+
+        def numbers() -> np.ndarray:
+            nonlocal lines
+            if lines is None:
+                lines = line_numbers()
+            return lines
+
         roles = [self._ti, self._fi] + ([self._si] if self._si is not None else [])
         finite = np.isfinite(data[:, roles]).all(axis=1)
         if not finite.all():
-            for ln in lines[~finite]:
+            for ln in numbers()[~finite]:
                 self.stats.skip(int(ln), "non-numeric or missing value")
-            data, lines = data[finite], lines[finite]
+            data, lines = data[finite], numbers()[finite]
         if data.shape[0] == 0:
             if cells:
-                self._cell_notes(cells, np.empty(0), lines)
+                self._cell_notes(cells, np.empty(0), numbers())
             return None
         t = data[:, self._ti] * self._scale
         prev = np.concatenate(([self._last_t], t[:-1]))
         if np.any(t < prev):
             back = int(np.argmax(t < prev))
             raise InputError("time goes backwards", source=str(self.path),
-                             line=int(lines[back]))
+                             line=int(numbers()[back]))
         fresh = t > prev
         if not fresh.all():
             self.stats.repeated_time += int((~fresh).sum())
-            data, t, lines = data[fresh], t[fresh], lines[fresh]
+            data, t, lines = data[fresh], t[fresh], numbers()[fresh]
         if cells:
-            self._cell_notes(cells, t, lines)
+            self._cell_notes(cells, t, numbers())
         if t.size == 0:
             return None
         self._last_t = float(t[-1])
@@ -434,6 +453,14 @@ class RecordingReader:
                 continue
             name, value = parse_note(text) or (NOTE_COLUMN, text)
             self._add_note(Note(at, name, clean_text(value)))
+
+
+def _row_lines(block: bytes, first_line: int) -> np.ndarray:
+    """The line numbers of the rows of ``block`` (its lines but the ``#`` ones), the first
+    line being ``first_line``."""
+    linenos = np.arange(first_line, first_line + block.count(b"\n"))
+    _, cut = split_off_lines(block, COMMENT_START)
+    return np.delete(linenos, [n + j for j, (n, _) in enumerate(cut)])
 
 
 def _drop_empty_lines(block: bytes, linenos: np.ndarray) -> tuple[bytes, np.ndarray]:

@@ -251,3 +251,21 @@ def test_only_regular_files_are_read(tmp_path, kind):
     message = {"fifo": "is a FIFO", "dir": "is a directory", "dev": "character device"}[kind]
     with pytest.raises(InputError, match=message):
         RecordingReader(path)  # at once: a FIFO without a writer would block an open()
+
+
+@pytest.mark.parametrize("rows", [10, 6000])  # a small file; blocks for pandas
+def test_line_numbers_count_comment_lines_on_the_fast_path(write_file, rows):
+    # Rows that parse in one pass but need their line numbers: a nan and a time going
+    # backwards, after note lines; the numbers are the file's own (header on line 2).
+    body = [f"{k * 1e-3:.3f},0,{k}" for k in range(rows)]
+    body.insert(3, "# note: 0.002 gains=a")
+    body.insert(5, "# a comment")
+    body[7] = "0.005,0,nan"  # line 2 + 8 = 10
+    text = "# source: test\nt,setpoint,feedback\n" + "\n".join(body) + "\n"
+    reader, _ = read_all(write_file("n.csv", text))
+    assert reader.stats.first_bad_line == 10 and reader.stats.bad == 1
+    assert [n.name for n in reader.notes] == ["gains"]
+    body.append("0.001,0,1")  # the last line goes back in time
+    with pytest.raises(InputError, match=f"line {len(body) + 2}: time goes backwards"):
+        read_all(write_file("b.csv", "# source: test\nt,setpoint,feedback\n"
+                            + "\n".join(body) + "\n"))
