@@ -133,14 +133,16 @@ def metric_stats(quantity: str, values: Iterable[float | None], low: float | Non
     Cpk against ``low``/``high`` from ``min_count`` values on (at least 2).
     ``limits_differ``: the values were judged against different limits (no Cpk)."""
     raw = list(values)
-    x = np.array([v for v in raw if v is not None and math.isfinite(v)], dtype=float)
-    n = int(x.size)
+    kept = [float(v) for v in raw if v is not None and math.isfinite(v)]
+    n = len(kept)
     if limits_differ:
         low = high = None
     note = _cpk_note(n, None, low, high, limits_differ, min_count)
-    if n == 0:
-        return MetricStats(quantity, 0, len(raw), None, None, None, None, low, high, None,
+    if n <= 1:  # (a tag that is new at every step has a group per step: no numpy there)
+        v = kept[0] if kept else None
+        return MetricStats(quantity, n, len(raw) - n, v, None, v, v, low, high, None,
                            note, limits_differ)
+    x = np.array(kept)
     mean = float(np.mean(x))
     std = float(np.std(x, ddof=1)) if n >= 2 else None
     note = _cpk_note(n, std, low, high, limits_differ, min_count)
