@@ -167,19 +167,21 @@ def add_recording_options(p: argparse.ArgumentParser) -> None:
                       help="unit of the time column (default s)")
     add_analysis_options(p)
     p.add_argument("--jobs", type=int, default=default_jobs(), metavar="N",
-                   help="worker processes measuring steps; 1: in this process (default:"
+                   help="processes analysing the steps: this one detects them and, from 2 on,"
+                   " N - 1 more measure and fit them; 1: all in this one (default:"
                    f" {default_jobs()} on this machine, see the README's performance notes)")
 
 
 def default_jobs() -> int:
-    """Worker processes for offline analysis: 1 (in this process, beside the process that
-    reads the recording) with 2 cores or fewer, where more workers cost time
-    (``tools/bench_analyze.py``); else one per core beyond those two, at most 4."""
+    """Processes analysing a recording (:func:`~livestep.steps.analysis.analyze_chunks`),
+    besides the one reading it: 1 (all in this process) with 2 cores or fewer, where a
+    worker measured no faster (``tools/bench_analyze.py``); else one per core beyond the
+    reader's, at most 4 (not measured)."""
     try:
         cores = len(os.sched_getaffinity(0))
     except AttributeError:  # not on every platform
         cores = os.cpu_count() or 1
-    return 1 if cores <= 2 else min(cores - 2, 4)
+    return 1 if cores <= 2 else min(cores - 1, 4)
 
 
 def parse_tag(text: str) -> tuple[str, str]:

@@ -8,10 +8,8 @@ step's window closes.
 from __future__ import annotations
 
 import multiprocessing as mp
-from collections import deque
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field, replace
-from multiprocessing.pool import AsyncResult
 
 import numpy as np
 
@@ -184,11 +182,11 @@ def analyze_chunks(chunks: Iterable[SampleChunk], settings: AnalysisSettings = A
                    *, has_setpoint: bool = True, workers: int = 1) -> Iterator[StepResult]:
     """Yield every step of a stream of chunks, in order.
 
-    ``workers`` > 1 measures and fits the steps in that many forked worker processes
-    while this one reads and detects (offline analysis of long recordings); the results
+    ``workers`` > 1: this process detects the steps and ``workers`` - 1 forked processes
+    measure and fit them (:class:`~livestep.steps.window_pool.WindowPool`); the results
     are the same, in the same order. Start it before any other thread of the process.
     The fit's solver is loaded first, while a reader started before (a process of its
-    own) reads.
+    own) reads, and before the workers are forked.
     """
     if settings.fit_model:
         load_solver()
@@ -198,21 +196,16 @@ def analyze_chunks(chunks: Iterable[SampleChunk], settings: AnalysisSettings = A
             yield from analyzer.feed(chunk)
         yield from analyzer.finish()
         return
+    from livestep.steps.window_pool import WindowPool
+
     detector = StepDetector(settings.detect, has_setpoint=has_setpoint,
                             measure=settings.measure)
-    with mp.get_context("fork").Pool(workers) as pool:  # forked now, before any reading
-        pending: deque[AsyncResult[StepResult]] = deque()
-
-        def submit(windows: list[StepWindow]) -> Iterator[StepResult]:
-            for w in windows:
-                pending.append(pool.apply_async(analyze_window, (w, settings)))
-            while pending and (pending[0].ready() or len(pending) > 8 * workers):
-                yield pending.popleft().get()
-
-        channels = ChannelBuffer()
+    channels = ChannelBuffer()
+    with WindowPool(workers - 1, settings) as pool:
         for chunk in chunks:
-            yield from submit(_with_channels(channels, chunk, detector.feed(
-                chunk.t, chunk.feedback, chunk.setpoint), detector))
-        yield from submit(_with_channels(channels, None, detector.finish(), detector))
-        while pending:
-            yield pending.popleft().get()
+            for w in _with_channels(channels, chunk, detector.feed(
+                    chunk.t, chunk.feedback, chunk.setpoint), detector):
+                yield from pool.submit(w)
+        for w in _with_channels(channels, None, detector.finish(), detector):
+            yield from pool.submit(w)
+        yield from pool.drain()
