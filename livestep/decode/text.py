@@ -118,6 +118,9 @@ class TextDecoder:
         self._unstamped: dict[str, str] = {}  # notes before the first sample, by name
         self._note_names: set[str] = set()
         self._last_t: float | None = None
+        # The last block had text lines among its rows: the next is split first (the
+        # order only saves a failed parse; the result is the same either way).
+        self._text_lately = False
 
     # -- public -------------------------------------------------------------------
     @property
@@ -273,7 +276,7 @@ class TextDecoder:
             return []
         ncol = len(self.columns)
         if not self._pairs and ncol:
-            fast = self._parse_fast(block, ncol)
+            fast = None if self._text_lately else self._parse_fast(block, ncol)
             if fast is None:  # comments, notes or log lines among the data?
                 fast = self._parse_around_text(block, ncol)
             if fast is not None:
@@ -350,8 +353,9 @@ class TextDecoder:
         lines. ``None`` (the caller goes line by line) when a line cut might be data or
         changes the time base (a segment marker)."""
         rest, lines = split_off_lines(block, TEXT_START)
+        self._text_lately = bool(lines)
         if not lines:
-            return None
+            return self._parse_fast(block, ncol)
         events: list[_Event] = []
         for before, raw in lines:
             line = raw.strip()
