@@ -42,23 +42,22 @@ def read_in_process(reader: RecordingReader, depth: int = 8) -> Iterator[SampleC
     if "fork" not in mp.get_all_start_methods():
         return read_ahead(reader, depth)
     ctx = mp.get_context("fork")
-    names = list(reader.extra_names)
-    ncol = 2 + reader.has_setpoint + len(names)
+    ncol = 2 + reader.has_setpoint + len(reader.extra_names)
     ring = depth + 2  # the child reuses a slot only after the parent took the next one
     shared = mmap.mmap(-1, ring * _SLOT_ROWS * ncol * 8)
     slots = np.frombuffer(shared, dtype=np.float64).reshape(ring, ncol, _SLOT_ROWS)
     q: Any = ctx.Queue(maxsize=depth)
-    child = ctx.Process(target=_produce, args=(reader, q, slots, names), daemon=True,
+    child = ctx.Process(target=_produce, args=(reader, q, slots), daemon=True,
                         name="livestep-reader")
     child.start()
-    return _receive(reader, child, q, shared, slots, names)
+    return _receive(reader, child, q, shared, slots)
 
 
 def _receive(reader: RecordingReader, child: Any, q: Any, shared: mmap.mmap,
-             slots: np.ndarray, names: list[str]) -> Iterator[SampleChunk]:
+             slots: np.ndarray) -> Iterator[SampleChunk]:
     """The parent's side: each chunk as the child announces it, copied out of its slot;
     at the end the reader's state; the child ended and the memory released when done."""
-    ncol = slots.shape[1]
+    names, first_extra = reader.extra_names, slots.shape[1] - len(reader.extra_names)
     try:
         while True:
             try:
@@ -71,13 +70,10 @@ def _receive(reader: RecordingReader, child: Any, q: Any, shared: mmap.mmap,
             if kind == "slot":
                 k, n, segment = item
                 cols = slots[k, :, :n].copy()
-                sp = 2 if reader.has_setpoint else None
                 yield SampleChunk(t=cols[0], feedback=cols[1],
-                                  setpoint=None if sp is None else cols[sp],
-                                  extras={x: cols[ncol - len(names) + j]
+                                  setpoint=cols[2] if reader.has_setpoint else None,
+                                  extras={x: cols[first_extra + j]
                                           for j, x in enumerate(names)}, segment=segment)
-            elif kind == "chunk":
-                yield item
             elif kind == "error":
                 raise item
             else:
@@ -94,19 +90,16 @@ def _receive(reader: RecordingReader, child: Any, q: Any, shared: mmap.mmap,
         shared.close()
 
 
-def _produce(reader: RecordingReader, q: Any, slots: np.ndarray, names: list[str]) -> None:
+def _produce(reader: RecordingReader, q: Any, slots: np.ndarray) -> None:
     """The child: every chunk (in the shared slots, in turn), then the reader's state, or
     the error that stopped it."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # ctrl-c is the parent's to handle
-    ring, ncol, rows = slots.shape
+    ring, _, rows = slots.shape
     k = 0
     try:
-        for chunk in reader:
-            if list(chunk.extras) != names:  # not the header's columns: sent whole
-                q.put(("chunk", chunk))
-                continue
-            cols = [chunk.t, chunk.feedback] + ([] if chunk.setpoint is None
-                                                else [chunk.setpoint]) + list(chunk.extras.values())
+        for chunk in reader:  # its extras are the header's extra columns, in order
+            cols = [chunk.t, chunk.feedback, *([] if chunk.setpoint is None
+                                               else [chunk.setpoint]), *chunk.extras.values()]
             for a in range(0, chunk.t.size, rows):
                 n = min(rows, chunk.t.size - a)
                 for j, c in enumerate(cols):
