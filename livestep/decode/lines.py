@@ -122,8 +122,6 @@ def split_off_lines(block: bytes, first: np.ndarray) -> tuple[bytes, list[tuple[
     cut, without its newline, with the number of lines of the rest before it). So a block
     of data with a comment or a note every thousand lines is still parsed in one pass;
     the caller handles the lines cut in their place (by that count)."""
-    if first is COMMENT_START:
-        return _split_off_comments(block)
     b = np.frombuffer(block, dtype=np.uint8)
     ends = np.flatnonzero(b == 10)
     starts = np.empty_like(ends)
@@ -142,10 +140,11 @@ def split_off_lines(block: bytes, first: np.ndarray) -> tuple[bytes, list[tuple[
     return b"".join(pieces), cut
 
 
-def _comment_spans(block: bytes) -> list[tuple[int, int]]:
-    """(start, end) of every line of ``block`` that starts with ``#`` (the end at its
-    newline), found by searching for that byte: a few comment lines in a large block cost
-    much less than looking at the first byte of every line."""
+def cut_comments(block: bytes) -> tuple[bytes, list[bytes]]:
+    """The block without its ``#`` lines, and those lines (without their newlines): what
+    :func:`split_off_lines` cuts with :data:`COMMENT_START`, found by searching for ``#``
+    (a few comment lines in a large block cost much less than looking at the first byte
+    of every line) and without the count of lines before each."""
     spans = []
     k = block.find(COMMENT)
     while k >= 0:
@@ -155,40 +154,14 @@ def _comment_spans(block: bytes) -> list[tuple[int, int]]:
             k = block.find(COMMENT, e + 1)
         else:
             k = block.find(COMMENT, k + 1)
-    return spans
-
-
-def _without(block: bytes, spans: list[tuple[int, int]]) -> bytes:
-    """The block without the lines ``spans`` (and their newlines), in one copy."""
-    view, at, pieces = memoryview(block), 0, []
+    if not spans:
+        return block, []
+    view, at, pieces = memoryview(block), 0, []  # the rest joined once: one copy
     for a, e in spans:
         pieces.append(view[at:a])
         at = e + 1
     pieces.append(view[at:])
-    return b"".join(pieces)
-
-
-def cut_comments(block: bytes) -> tuple[bytes, list[bytes]]:
-    """The block without its ``#`` lines, and those lines (without their newlines): what
-    :func:`split_off_lines` gives with :data:`COMMENT_START`, without counting the lines
-    before each (for a caller that does not need their places)."""
-    spans = _comment_spans(block)
-    if not spans:
-        return block, []
-    return _without(block, spans), [block[a:e] for a, e in spans]
-
-
-def _split_off_comments(block: bytes) -> tuple[bytes, list[tuple[int, bytes]]]:
-    """:func:`split_off_lines` for the lines that start with ``#``."""
-    spans = _comment_spans(block)
-    if not spans:
-        return block, []
-    cut, at, rows = [], 0, 0
-    for a, e in spans:
-        rows += block.count(b"\n", at, a)
-        cut.append((rows, block[a:e]))
-        at = e + 1
-    return _without(block, spans), cut
+    return b"".join(pieces), [block[a:e] for a, e in spans]
 
 
 def cut_column(block: bytes, index: int, ncol: int,

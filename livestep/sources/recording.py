@@ -341,7 +341,7 @@ class RecordingReader:
             if cut:
                 for _, raw in cut:
                     self._comment(raw)
-                linenos = np.delete(linenos, [n + j for j, (n, _) in enumerate(cut)])
+                linenos = _without_cut(linenos, cut)
                 if linenos.size == 0:
                     return None
         if b"\n\n" in block or block[:1] == b"\n":  # blank lines: dropped at numpy speed
@@ -459,7 +459,11 @@ def _row_lines(block: bytes, first_line: int) -> np.ndarray:
     """The line numbers of the rows of ``block`` (its lines but the ``#`` ones), the first
     line being ``first_line``."""
     linenos = np.arange(first_line, first_line + block.count(b"\n"))
-    _, cut = split_off_lines(block, COMMENT_START)
+    return _without_cut(linenos, split_off_lines(block, COMMENT_START)[1])
+
+
+def _without_cut(linenos: np.ndarray, cut: list[tuple[int, bytes]]) -> np.ndarray:
+    """The line numbers of a block's lines but those :func:`split_off_lines` cut."""
     return np.delete(linenos, [n + j for j, (n, _) in enumerate(cut)])
 
 
