@@ -144,7 +144,7 @@ def metric_stats(quantity: str, values: Iterable[float | None], low: float | Non
                            note, limits_differ)
     x = np.array(kept)
     mean = float(np.mean(x))
-    std = float(np.std(x, ddof=1)) if n >= 2 else None
+    std = float(np.std(x, ddof=1))
     note = _cpk_note(n, std, low, high, limits_differ, min_count)
     cpk = None if note else capability(mean, std, low, high)
     return MetricStats(quantity, n, len(raw) - n, mean, std, float(np.min(x)), float(np.max(x)),

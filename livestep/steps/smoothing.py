@@ -68,8 +68,11 @@ def _box(y: FloatArray, size: int) -> FloatArray:
     return (c[size:] - c[:-size]) / size
 
 
+Smoothed = tuple[FloatArray, FloatArray, int]  # times, values, index of the step instant
+
+
 def smoothed(tg: FloatArray, yg: FloatArray, g0: int, window: int,
-             stop: int | None = None) -> tuple[FloatArray, FloatArray, int]:
+             stop: int | None = None) -> Smoothed:
     """(times, values, index of the step instant) of ``yg`` smoothed over ``window`` samples
     of the uniform grid ``tg``. A long span first averages blocks of k = window / 10
     samples and goes on with every k-th point, the step instant among them (the same
@@ -85,13 +88,13 @@ def smoothed(tg: FloatArray, yg: FloatArray, g0: int, window: int,
     else:
         stop = None
     if k < 3:
-        ts, ys = tg, _smooth(yg, window)
+        ts, ys, s0 = tg, _smooth(yg, window), g0
     else:
-        ts, ys = tg[g0 % k::k], _smooth(_box(yg, k)[g0 % k::k], _odd(window / k, 5))
-    if stop is not None:
-        keep = -(-(stop - g0 % k) // k) if k >= 3 else stop
+        ts, ys, s0 = tg[g0 % k::k], _smooth(_box(yg, k)[g0 % k::k], _odd(window / k, 5)), g0 // k
+    if stop is not None:  # the points before grid index stop: one of every k from g0 % k
+        keep = stop if k < 3 else -(-(stop - g0 % k) // k)
         ts, ys = ts[:keep], ys[:keep]
-    return ts, ys, g0 // k if k >= 3 else g0
+    return ts, ys, s0
 
 
 def noise_gain(window: int) -> float:
@@ -108,9 +111,6 @@ def _span(samples: float) -> int:
     """An odd smoothing span of about ``samples``; 1 (no smoothing) below 5."""
     k = _odd(samples, 1)
     return k if k >= 5 else 1
-
-
-Smoothed = tuple[FloatArray, FloatArray, int]  # what smoothed() gives
 
 
 def choose_spans(tg: FloatArray, yg: FloatArray, g0: int, initial: float, amp: float,
